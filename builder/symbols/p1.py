@@ -1,0 +1,130 @@
+"""The projective line P¹(Z/NZ) with a vectorised normal form.
+
+P¹(Z/NZ) is the set of pairs (c, d) with gcd(c, d, N) = 1 modulo the scalars
+(Z/NZ)^*; it is in bijection with the right cosets Γ0(N)\\SL2(Z) via
+[[a, b], [c, d]] ↦ (c : d), so |P¹(Z/NZ)| = ψ(N) = N ∏_{p|N} (1 + 1/p)
+([Cr] §2.2, [St] §8.2).
+
+Normal form (our own, proved in DEVELOPERS.md): for (c : d) put g = gcd(c, N)
+and M = N/g.  Scaling by a unit sends c to g, and the units that fix g are
+those ≡ 1 (mod M), whose orbit on the second coordinate is everything
+congruent modulo M.  Hence a point is determined by the pair (g, r) with
+
+    r = d · (c/g)^{-1}  (mod M),   gcd(r, g, M) = 1,
+
+and every look-up is a gcd, a table inverse and a table index: no Python loop
+per point, whole numpy arrays at once.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+from math import gcd
+
+import numpy as np
+
+from builder.arith import check_level, divisors
+
+
+def _inverse_table(m: int) -> np.ndarray:
+    """inv[x] = x^{-1} mod m for units x, 0 otherwise (m ≥ 1)."""
+    inv = np.zeros(m, dtype=np.int64)
+    for x in range(m):
+        if gcd(x, m) == 1:
+            inv[x] = pow(x, -1, m) if m > 1 else 0
+    return inv
+
+
+class P1:
+    """P¹(Z/NZ): points, representatives and a vectorised index look-up.
+
+    Attributes
+    ----------
+    N : the level.
+    c, d : int64 arrays of length ψ(N); (c[i], d[i]) is a representative of
+        point i with gcd(c[i], d[i]) = 1 as integers, so it is the bottom row
+        of a matrix in SL2(Z).
+    """
+
+    def __init__(self, N: int) -> None:
+        self.N = check_level(N)
+        N = self.N
+        self.divisors = divisors(N)
+        # slot of each divisor; tables for all divisors concatenated
+        self._slot = np.full(N + 1, -1, dtype=np.int64)
+        inv_parts, idx_parts, offs = [], [], []
+        reps_c: list[int] = []
+        reps_d: list[int] = []
+        off = 0
+        count = 0
+        for s, g in enumerate(self.divisors):
+            M = N // g
+            self._slot[g] = s
+            offs.append(off)
+            inv_parts.append(_inverse_table(M))
+            table = np.full(M, -1, dtype=np.int64)
+            h = gcd(g, M)
+            for r in range(M):
+                if gcd(r, h) == 1:
+                    table[r] = count
+                    count += 1
+                    reps_c.append(0 if g == N else g)
+                    reps_d.append(1 if g == N else self._lift(g, M, r))
+            idx_parts.append(table)
+            off += M
+        self._off = np.array(offs, dtype=np.int64)
+        self._mod = np.array([N // g for g in self.divisors], dtype=np.int64)
+        self._inv = np.concatenate(inv_parts)
+        self._idx = np.concatenate(idx_parts)
+        self.c = np.array(reps_c, dtype=np.int64)
+        self.d = np.array(reps_d, dtype=np.int64)
+        self.size = count
+
+    @staticmethod
+    def _lift(g: int, M: int, r: int) -> int:
+        """Smallest x ≥ 0 with x ≡ r (mod M) and gcd(x, g) = 1."""
+        x = r
+        while gcd(x, g) != 1:
+            x += M
+        return x
+
+    def __len__(self) -> int:
+        return self.size
+
+    def index(self, c: np.ndarray, d: np.ndarray) -> np.ndarray:
+        """Indices of the points (c : d) for integer arrays c, d (any sign).
+
+        Returns -1 where gcd(c, d, N) ≠ 1 (the pair is not in P¹(Z/NZ)).
+        """
+        N = self.N
+        c = np.mod(np.asarray(c, dtype=np.int64), N)
+        d = np.mod(np.asarray(d, dtype=np.int64), N)
+        g = np.gcd(c, N)
+        g = np.where(g == 0, N, g)
+        s = self._slot[g]
+        M = self._mod[s]
+        off = self._off[s]
+        cq = (c // g) % M
+        r = (d % M) * self._inv[off + cq] % M
+        out = self._idx[off + r]
+        bad = np.gcd(np.gcd(c, d), N) != 1
+        if N == 1:
+            bad[:] = False
+        out = np.where(bad, -1, out)
+        return out
+
+    def index_one(self, c: int, d: int) -> int:
+        """Index of a single point (c : d); -1 if not in P¹(Z/NZ)."""
+        return int(self.index(np.array([c]), np.array([d]))[0])
+
+    def class_data(self) -> tuple[np.ndarray, np.ndarray]:
+        """For each point, the pair (g, r) of its normal form."""
+        g = np.where(self.c == 0, self.N, np.gcd(self.c, self.N))
+        M = self.N // g
+        return g, np.mod(self.d, M)
+
+
+@lru_cache(maxsize=64)
+def p1(N: int) -> P1:
+    """Cached P¹(Z/NZ) (the tables depend only on N)."""
+    return P1(N)

@@ -1,0 +1,373 @@
+"""A space of modular symbols of weight k for Γ0(N) with its operators.
+
+Public API (pure; no I/O):
+
+    space = cuspidal_space(N, k, sign=+1)
+    space.dim_cuspidal, space.dim_eisenstein, space.dim
+    space.hecke_matrix(n)          # exact fmpq_mat on the cuspidal basis
+    space.atkin_lehner(Q)          # W_Q for Q ∥ N, normalised so W_Q² = 1
+    space.fricke()                 # W_N
+    space.hecke_on_symbol(n, x)    # fast path: T_n of one Manin symbol
+    space.modular_symbol(P, a, b)  # P(X, Y){a, b} in the free basis
+    space.degeneracy(M, t)         # level N → level M, z ↦ t z
+
+Matrices act on row vectors (v ↦ v·A), rows being the images of the basis.
+References: [St] ch. 8 (Manin symbols, boundary, Merel's formula, Atkin–Lehner,
+degeneracy maps), [Cr] ch. 2 (weight 2), [Me], [Ma] (continued fractions).
+"""
+
+from __future__ import annotations
+
+from fractions import Fraction
+from functools import cached_property, lru_cache
+from math import gcd
+
+import flint
+
+from builder.arith import check_index, check_level, check_sign, check_weight, factor
+from builder.symbols.cusps import boundary_classes
+from builder.symbols.heilbronn import merel
+from builder.symbols.manin import ManinPresentation, poly_action
+
+Vec = dict  # sparse vector {position: int | Fraction}
+
+
+def _add_into(acc: Vec, vec: Vec, scale=1) -> None:
+    for t, v in vec.items():
+        s = acc.get(t, 0) + scale * v
+        if s:
+            acc[t] = s
+        else:
+            acc.pop(t, None)
+
+
+def _to_fmpq(x) -> flint.fmpq:
+    if isinstance(x, Fraction):
+        return flint.fmpq(x.numerator, x.denominator)
+    return flint.fmpq(x)
+
+
+def rows_to_fmpq_mat(rows: list[Vec], ncols: int) -> flint.fmpq_mat:
+    """Dense exact matrix from sparse rows."""
+    M = flint.fmpq_mat(len(rows), ncols)
+    for r, row in enumerate(rows):
+        for c, v in row.items():
+            M[r, c] = _to_fmpq(v)
+    return M
+
+
+def convergents(u: int, v: int) -> list[tuple[int, int]]:
+    """Convergents p_j/q_j (j = −2, −1, 0, …, n) of u/v, v > 0, gcd(u, v) = 1."""
+    out = [(0, 1), (1, 0)]
+    while v:
+        q, r = divmod(u, v)
+        p1, q1 = out[-1]
+        p0, q0 = out[-2]
+        out.append((q * p1 + p0, q * q1 + q0))
+        u, v = v, r
+    return out
+
+
+class SymbolSpace:
+    """Modular symbols M_k(Γ0(N)) with sign, its cuspidal subspace and operators."""
+
+    def __init__(self, N: int, k: int, sign: int = 1) -> None:
+        self.N = check_level(N)
+        self.k = check_weight(k)
+        self.sign = check_sign(sign)
+        self.w = self.k - 2
+        self.pres = ManinPresentation(self.N, self.k, self.sign)
+        self.P1 = self.pres.P1
+        self.psi = self.pres.psi
+        self.dim = self.pres.dim
+        self._cuspidal()
+
+    # -- cuspidal subspace ------------------------------------------------------
+    def _boundary_rows(self) -> tuple[list[Vec], int]:
+        cls, sgn, ncls = boundary_classes(self.P1, self.sign)
+        sigma = self.P1.index(self.P1.d, -self.P1.c)
+        rows = []
+        for x in self.pres.free:
+            i, j = divmod(x, self.psi)
+            row: Vec = {}
+            if i == self.w and sgn[j]:
+                _add_into(row, {int(cls[j]): int(sgn[j])})
+            if i == 0:
+                js = int(sigma[j])
+                if sgn[js]:
+                    _add_into(row, {int(cls[js]): -int(sgn[js])})
+            rows.append(row)
+        return rows, ncls
+
+    def _cuspidal(self) -> None:
+        F = self.dim
+        if F == 0:
+            self.dim_cuspidal = 0
+            self.dim_eisenstein = 0
+            self.cusp_basis = flint.fmpq_mat(0, 0)
+            self.cusp_pivots: list[int] = []
+            return
+        rows, ncls = self._boundary_rows()
+        B = rows_to_fmpq_mat(rows, max(ncls, 1))
+        # cuspidal = {v : v·B = 0}: rational basis in reduced echelon form
+        K = _left_kernel(B)
+        self.cusp_basis = K
+        self.cusp_pivots = _pivots(K)
+        self.dim_cuspidal = K.nrows()
+        self.dim_eisenstein = F - self.dim_cuspidal
+
+    # -- symbols -----------------------------------------------------------------
+    def symbol(self, i: int, c: int, d: int) -> Vec:
+        """Free-basis coordinates of the Manin symbol [X^i Y^(w−i), (c:d)]."""
+        x = self.pres.symbol_index(i, c, d)
+        return {} if x < 0 else self.pres.coords(x)
+
+    def _poly_symbol(self, poly: list, g: tuple[int, int, int, int]) -> Vec:
+        """P{g0, g∞} = [P|g, g] for g ∈ SL2(Z), P given by its coefficients."""
+        a, b, c, d = g
+        A = poly_action(a, b, c, d, self.w)
+        out: Vec = {}
+        for i, pi in enumerate(poly):
+            if not pi:
+                continue
+            for m, coef in enumerate(A[i]):
+                if coef:
+                    _add_into(out, self.symbol(m, c, d), pi * coef)
+        return out
+
+    def modular_symbol(self, poly: list, alpha: tuple[int, int], beta: tuple[int, int]) -> Vec:
+        """P(X, Y){α, β} in the free basis; cusps as (u, v) = u/v, (1, 0) = ∞.
+
+        Method: {0, u/v} is the sum over consecutive convergents of
+        g_j{0, ∞} with g_j ∈ SL2(Z) ([Ma], [Cr] §2.1, [St] §8.5).
+        """
+        out: Vec = {}
+        _add_into(out, self._from_zero(poly, beta))
+        _add_into(out, self._from_zero(poly, alpha), -1)
+        return out
+
+    def _from_zero(self, poly: list, cusp: tuple[int, int]) -> Vec:
+        u, v = cusp
+        if v < 0:
+            u, v = -u, -v
+        if v == 0:
+            return self._poly_symbol(poly, (1, 0, 0, 1))
+        g = gcd(u, v)
+        u, v = u // g, v // g
+        cv = convergents(u, v)
+        out: Vec = {}
+        for j in range(1, len(cv)):
+            (p0, q0), (p1, q1) = cv[j - 1], cv[j]
+            if p1 * q0 - p0 * q1 == 1:
+                mat = (p1, p0, q1, q0)
+            else:
+                mat = (-p1, p0, -q1, q0)
+            _add_into(out, self._poly_symbol(poly, mat))
+        return out
+
+    # -- Hecke operators ---------------------------------------------------------
+    def hecke_on_symbol(self, n: int, x: int) -> Vec:
+        """T_n applied to Manin symbol number x, by Merel's formula; free coordinates."""
+        n = check_index(n)
+        i, j = divmod(x, self.psi)
+        a, b, c, d = merel(n)
+        u, v = int(self.P1.c[j]), int(self.P1.d[j])
+        idx = self.P1.index(u * a + v * c, u * b + v * d)
+        out: Vec = {}
+        if self.w == 0:
+            coords = self.pres.coords
+            for t in idx[idx >= 0].tolist():
+                _add_into(out, coords(t))
+            return out
+        for h in range(len(a)):
+            t = int(idx[h])
+            if t < 0:
+                continue
+            A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), self.w)[i]
+            for m, coef in enumerate(A):
+                if coef:
+                    _add_into(out, self.pres.coords(m * self.psi + t), coef)
+        return out
+
+    def hecke_full(self, n: int) -> list[Vec]:
+        """Rows of T_n on the whole symbol space (free basis)."""
+        return [self.hecke_on_symbol(n, x) for x in self.pres.free]
+
+    @lru_cache(maxsize=64)
+    def hecke_matrix(self, n: int) -> flint.fmpq_mat:
+        """Exact matrix of T_n on the cuspidal subspace (rows = images of the basis)."""
+        n = check_index(n)
+        return self.restrict(self.hecke_full(n))
+
+    def restrict(self, rows: list[Vec]) -> flint.fmpq_mat:
+        """Matrix on the cuspidal basis of an operator given on the free basis.
+
+        The operator must preserve the cuspidal subspace (Hecke, W_Q do).
+        """
+        s = self.dim_cuspidal
+        if s == 0:
+            return flint.fmpq_mat(0, 0)
+        T = rows_to_fmpq_mat(rows, self.dim)
+        image = self.cusp_basis * T
+        out = flint.fmpq_mat(s, s)
+        for r in range(s):
+            for c, p in enumerate(self.cusp_pivots):
+                out[r, c] = image[r, p]
+        return out
+
+    # -- Atkin–Lehner ---------------------------------------------------------------
+    def atkin_lehner_matrix_for(self, Q: int) -> tuple[int, int, int, int]:
+        """W_Q = [[Q x, y], [N z, Q w]] of determinant Q, for Q ∥ N."""
+        N = self.N
+        Q = check_index(Q, "Q")
+        if N % Q or gcd(Q, N // Q) != 1:
+            raise ValueError(f"Q must be an exact divisor of N = {N} (Q ∥ N), got {Q}")
+        R = N // Q
+        # Q x·w − R·y z·... solve Q·X − R·Z = 1 with X = x w, then take w = 1, y = 1
+        x = pow(Q, -1, R) if R > 1 else 1
+        z = (Q * x - 1) // R if R > 1 else Q * x - 1
+        # [[Q x, 1], [N z, Q]] has det Q² x − N z = Q (Q x − R z) = Q
+        return (Q * x, 1, N * z, Q)
+
+    def atkin_lehner_full(self, Q: int) -> list[Vec]:
+        """Rows of W_Q on the whole symbol space, normalised so that W_Q² = 1.
+
+        W(P{α, β}) = (P|adj W){Wα, Wβ}; then W² = Q^(k−2), and we divide by
+        Q^((k−2)/2) ([AL], [St] §8.?).
+        """
+        A, B, C, D = self.atkin_lehner_matrix_for(Q)
+        adj = (D, -B, -C, A)
+        scale = Fraction(1, Q ** (self.w // 2))
+        rows = []
+        for x in self.pres.free:
+            i, j = divmod(x, self.psi)
+            c, d = int(self.P1.c[j]), int(self.P1.d[j])
+            a, b = _complete(c, d)
+            # x = g(P{0,∞}) = (P|g^{-1}){g0, g∞},  g = [[a,b],[c,d]]
+            poly = [0] * (self.w + 1)
+            poly[i] = 1
+            ginv = (d, -b, -c, a)
+            p2 = _act(_act(poly, ginv, self.w), adj, self.w)
+            # W g maps 0 ↦ (A b + B d)/(C b + D d), ∞ ↦ (A a + B c)/(C a + D c)
+            alpha = (A * b + B * d, C * b + D * d)
+            beta = (A * a + B * c, C * a + D * c)
+            vec = self.modular_symbol(p2, _reduce(alpha), _reduce(beta))
+            rows.append({t: v * scale for t, v in vec.items()} if scale != 1 else vec)
+        return rows
+
+    def atkin_lehner(self, Q: int) -> flint.fmpq_mat:
+        """W_Q on the cuspidal subspace, normalised to an involution."""
+        return self.restrict(self.atkin_lehner_full(Q))
+
+    def fricke(self) -> flint.fmpq_mat:
+        return self.atkin_lehner(self.N)
+
+    def exact_divisors(self) -> list[int]:
+        return sorted(p**e for p, e in factor(self.N))
+
+    # -- degeneracy maps ---------------------------------------------------------------
+    def degeneracy_rows(self, target: "SymbolSpace", t: int) -> list[Vec]:
+        """Rows of the degeneracy map to level M = target.N induced by z ↦ t z.
+
+        Requires t·M | N.  x = P{α, β} ↦ (P|[[1,0],[0,t]]){tα, tβ} at level M
+        ([St] §8.6); for t = 1 it is the identity on Manin symbols.
+        """
+        M = target.N
+        if self.N % (t * M):
+            raise ValueError(f"degeneracy map needs t·M | N, got t={t}, M={M}, N={self.N}")
+        rows = []
+        for x in self.pres.free:
+            i, j = divmod(x, self.psi)
+            c, d = int(self.P1.c[j]), int(self.P1.d[j])
+            if t == 1:
+                rows.append(dict(target.symbol(i, c, d)))
+                continue
+            a, b = _complete(c, d)
+            poly = [0] * (self.w + 1)
+            poly[i] = 1
+            p2 = _act(_act(poly, (d, -b, -c, a), self.w), (1, 0, 0, t), self.w)
+            alpha = _reduce((t * b, d))
+            beta = _reduce((t * a, c))
+            rows.append(target.modular_symbol(p2, alpha, beta))
+        return rows
+
+
+def _complete(c: int, d: int) -> tuple[int, int]:
+    """(a, b) with a·d − b·c = 1 (c, d coprime integers)."""
+    if c == 0:
+        return (d, 0) if abs(d) == 1 else _raise(c, d)
+    g, s, t = _egcd(d, c)  # s d + t c = 1
+    if g != 1:
+        _raise(c, d)
+    return s, -t
+
+
+def _raise(c, d):
+    raise ValueError(f"({c}, {d}) is not a primitive pair")
+
+
+def _egcd(a: int, b: int) -> tuple[int, int, int]:
+    x0, y0, x1, y1 = 1, 0, 0, 1
+    while b:
+        q, a, b = a // b, b, a % b
+        x0, x1 = x1, x0 - q * x1
+        y0, y1 = y1, y0 - q * y1
+    if a < 0:
+        a, x0, y0 = -a, -x0, -y0
+    return a, x0, y0
+
+
+def _reduce(cusp: tuple[int, int]) -> tuple[int, int]:
+    u, v = cusp
+    g = gcd(u, v)
+    return (u // g, v // g)
+
+
+def _act(poly: list, h: tuple[int, int, int, int], w: int) -> list:
+    """Coefficients of P|h for P given by coefficients of X^i Y^(w−i)."""
+    A = poly_action(*h, w)
+    out = [0] * (w + 1)
+    for i, pi in enumerate(poly):
+        if pi:
+            for m, coef in enumerate(A[i]):
+                if coef:
+                    out[m] += pi * coef
+    return out
+
+
+def _left_kernel(B: flint.fmpq_mat) -> flint.fmpq_mat:
+    """Rows spanning {v : v·B = 0}, in reduced row echelon form."""
+    Bt = B.transpose()
+    R, rank = Bt.rref()
+    n = Bt.ncols()
+    piv = []
+    r = 0
+    for c in range(n):
+        if r < rank and R[r, c] != 0:
+            piv.append(c)
+            r += 1
+    free = [c for c in range(n) if c not in set(piv)]
+    K = flint.fmpq_mat(len(free), n)
+    for t, f in enumerate(free):
+        K[t, f] = 1
+        for r, p in enumerate(piv):
+            K[t, p] = -R[r, f]
+    if K.nrows():
+        K, _ = K.rref()
+    return K
+
+
+def _pivots(E: flint.fmpq_mat) -> list[int]:
+    out = []
+    c = 0
+    for r in range(E.nrows()):
+        while E[r, c] == 0:
+            c += 1
+        out.append(c)
+    return out
+
+
+@lru_cache(maxsize=32)
+def cuspidal_space(N: int, k: int, sign: int = 1) -> SymbolSpace:
+    """The (cached) symbol space of level N, weight k, sign; see SymbolSpace."""
+    return SymbolSpace(check_level(N), check_weight(k), check_sign(sign))
