@@ -189,25 +189,66 @@ class SymbolSpace:
                     _add_into(out, self.pres.coords(m * self.psi + t), coef)
         return out
 
-    def hecke_full(self, n: int) -> list[Vec]:
-        """Rows of T_n on the whole symbol space (free basis)."""
-        return [self.hecke_on_symbol(n, x) for x in self.pres.free]
+    def hecke_full(self, n: int) -> flint.fmpq_mat:
+        """Matrix of T_n on the whole symbol space (free basis, rows = images)."""
+        n = check_index(n)
+        if self.w == 0:
+            return rows_to_fmpq_mat([self.hecke_on_symbol(n, x) for x in self.pres.free], self.dim)
+        # weight > 2: Z[f, symbol] = Σ_h coefficient of that symbol in [x_f]·h, then Z·C
+        a, b, c, d = (arr.tolist() for arr in merel(n))
+        acts = [poly_action(a[h], b[h], c[h], d[h], self.w) for h in range(len(a))]
+        F, psi = self.dim, self.psi
+        Z = flint.fmpz_mat(F, self.pres.nsym)
+        for f, x in enumerate(self.pres.free):
+            i, j = divmod(x, psi)
+            u, v = int(self.P1.c[j]), int(self.P1.d[j])
+            idx = self.P1.index(
+                [u * a[h] + v * c[h] for h in range(len(a))],
+                [u * b[h] + v * d[h] for h in range(len(a))],
+            ).tolist()
+            for h, t in enumerate(idx):
+                if t < 0:
+                    continue
+                for m, coef in enumerate(acts[h][i]):
+                    if coef:
+                        Z[f, m * psi + t] += coef
+        C, D = self._coordinate_matrix()
+        return flint.fmpq_mat(Z * C) / D
 
-    @lru_cache(maxsize=64)
+    @cached_property
+    def _coords_int(self) -> tuple[flint.fmpz_mat, int]:
+        """All symbol coordinates as an integer matrix C (nsym × F) and its denominator D."""
+        D = 1
+        for x in range(self.pres.nsym):
+            for v in self.pres.coords(x).values():
+                if isinstance(v, Fraction):
+                    D = D * v.denominator // gcd(D, v.denominator)
+        C = flint.fmpz_mat(self.pres.nsym, self.dim)
+        for x in range(self.pres.nsym):
+            for t, v in self.pres.coords(x).items():
+                C[x, t] = int(v * D)
+        return C, D
+
+    def _coordinate_matrix(self) -> tuple[flint.fmpz_mat, int]:
+        return self._coords_int
+
+    @lru_cache(maxsize=64, typed=True)  # typed: 2.0 must not hit the entry of 2
     def hecke_matrix(self, n: int) -> flint.fmpq_mat:
         """Exact matrix of T_n on the cuspidal subspace (rows = images of the basis)."""
         n = check_index(n)
         return self.restrict(self.hecke_full(n))
 
-    def restrict(self, rows: list[Vec]) -> flint.fmpq_mat:
+    def restrict(self, T) -> flint.fmpq_mat:
         """Matrix on the cuspidal basis of an operator given on the free basis.
 
-        The operator must preserve the cuspidal subspace (Hecke, W_Q do).
+        ``T`` is an fmpq_mat or a list of sparse rows; the operator must preserve
+        the cuspidal subspace (Hecke operators and W_Q do).
         """
         s = self.dim_cuspidal
         if s == 0:
             return flint.fmpq_mat(0, 0)
-        T = rows_to_fmpq_mat(rows, self.dim)
+        if isinstance(T, list):
+            T = rows_to_fmpq_mat(T, self.dim)
         image = self.cusp_basis * T
         out = flint.fmpq_mat(s, s)
         for r in range(s):
@@ -367,7 +408,7 @@ def _pivots(E: flint.fmpq_mat) -> list[int]:
     return out
 
 
-@lru_cache(maxsize=32)
+@lru_cache(maxsize=32, typed=True)  # typed: 11.0 or True must not hit a cached int
 def cuspidal_space(N: int, k: int, sign: int = 1) -> SymbolSpace:
     """The (cached) symbol space of level N, weight k, sign; see SymbolSpace."""
     return SymbolSpace(check_level(N), check_weight(k), check_sign(sign))

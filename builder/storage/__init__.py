@@ -1,0 +1,1 @@
+"""Storage: the schema (models), the one writer, reading back, Parquet export."""
