@@ -134,3 +134,28 @@ def coprime(a: int, b: int) -> bool:
 def sturm_bound(N: int, k: int) -> int:
     """Sturm's bound ⌊k ψ(N) / 12⌋ for Γ0(N) [Su]."""
     return k * psi(N) // 12
+
+
+def is_prime_large(n: int) -> bool:
+    """Deterministic Miller–Rabin for n < 3.3·10^24 (bases = first 13 primes)."""
+    if n < 2:
+        return False
+    small = (2, 3, 5, 7, 11, 13, 17, 19, 23, 29, 31, 37, 41)
+    for p in small:
+        if n % p == 0:
+            return n == p
+    d, s = n - 1, 0
+    while d % 2 == 0:
+        d //= 2
+        s += 1
+    for a in small:
+        x = pow(a, d, n)
+        if x in (1, n - 1):
+            continue
+        for _ in range(s - 1):
+            x = x * x % n
+            if x == n - 1:
+                break
+        else:
+            return False
+    return True

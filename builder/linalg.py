@@ -133,3 +133,85 @@ def poly_at_matrix(f, T: flint.fmpq_mat) -> flint.fmpq_mat:
         if c != 0:
             R = R + I * flint.fmpq(c)
     return R
+
+
+# -- modular linear algebra with a checked lift ------------------------------------
+
+LIFT_PRIMES_START = (1 << 62) - 57  # primes below 2^62, used downwards
+
+
+def lift_primes():
+    """Primes below 2^62 in decreasing order (an endless generator)."""
+    from builder.arith import is_prime_large
+
+    p = LIFT_PRIMES_START
+    while True:
+        if is_prime_large(p):
+            yield p
+        p -= 2
+
+
+def fmpq_mat_mod(A: flint.fmpq_mat, ell: int) -> flint.nmod_mat:
+    """Reduction of a rational matrix modulo ℓ (ℓ must not divide denominators)."""
+    Z, den = A.numer_denom()
+    inv = pow(int(den) % ell, -1, ell)
+    out = flint.nmod_mat(Z.nrows(), Z.ncols(), ell)
+    for i in range(Z.nrows()):
+        for j in range(Z.ncols()):
+            v = Z[i, j]
+            if v != 0:
+                out[i, j] = int(v) % ell * inv % ell
+    return out
+
+
+def nmod_kernel_cols(A: flint.nmod_mat) -> flint.nmod_mat:
+    """Columns spanning the right kernel of A over F_ℓ."""
+    X, nul = A.nullspace()
+    n = A.ncols()
+    e = X.entries()
+    flat = [e[i * n + j] for i in range(n) for j in range(nul)]
+    return flint.nmod_mat(n, nul, flat, A.modulus())
+
+
+def nmod_column_echelon(U: flint.nmod_mat) -> tuple[flint.nmod_mat, list[int]]:
+    """(E, piv): E spans the same columns as U and E[piv, :] = identity."""
+    R, rank = U.transpose().rref()
+    n = R.ncols()
+    e = R.entries()
+    piv = []
+    c = 0
+    for r in range(rank):
+        while e[r * n + c] == 0:
+            c += 1
+        piv.append(c)
+    Et = flint.nmod_mat(rank, n, e[: rank * n], U.modulus())
+    return Et.transpose(), piv
+
+
+def rational_reconstruction(a: int, m: int) -> tuple[int, int] | None:
+    """(n, d) with n ≡ a·d (mod m), |n|, d ≤ sqrt(m/2), or None (Wang's algorithm)."""
+    from math import isqrt
+
+    a %= m
+    bound = isqrt(m // 2)
+    r0, r1 = m, a
+    s0, s1 = 0, 1
+    while r1 > bound:
+        q = r0 // r1
+        r0, r1 = r1, r0 - q * r1
+        s0, s1 = s1, s0 - q * s1
+    if s1 == 0 or abs(s1) > bound:
+        return None
+    if s1 < 0:
+        r1, s1 = -r1, -s1
+    from math import gcd
+
+    if gcd(r1, s1) != 1:
+        return None
+    return r1, s1
+
+
+def crt_pair(a: int, m: int, b: int, n: int) -> int:
+    """x mod m·n with x ≡ a (m), x ≡ b (n)."""
+    t = (b - a) * pow(m, -1, n) % n
+    return a + m * t

@@ -29,7 +29,17 @@ import numpy as np
 from builder.arith import factor, is_prime, primes_up_to
 from builder.forms.fields import NumberField
 from builder.forms.newspace import NewSpace, Orbit
-from builder.linalg import charpoly_int, identity, poly_at_matrix, restrict
+from builder.linalg import (
+    charpoly_int,
+    crt_pair,
+    identity,
+    lift_primes,
+    nmod_column_echelon,
+    nmod_kernel_cols,
+    poly_at_matrix,
+    rational_reconstruction,
+    restrict,
+)
 from builder.symbols.heilbronn import merel
 from builder.symbols.manin import poly_action
 from builder.symbols.space import SymbolSpace, rows_to_fmpq_mat
@@ -58,39 +68,109 @@ class EigenForm:
         return restrict(self.orbit.basis, self.new.hecke(n))
 
     def _dual(self) -> flint.fmpq_mat:
+        """The dual U (F × d, column echelon) computed modulo primes, lifted, checked.
+
+        Mod ℓ: cut M* down by W_Q − ε_Q, then by g_p(T_p) (g_p = charpoly of T_p
+        on V) for p = the orbit's prime, then further primes ∤ N, until the
+        dimension is d.  Lift by CRT + rational reconstruction; accept only if
+        exactly W_Q U = ε_Q U and T_p U = U A_p with charpoly(A_p) = g_p for every
+        p used.  Then U lies in the exact common kernel, whose dimension is at
+        most the mod-ℓ dimension d, and contains the dual of V: so it is it.
+        """
+        primes = [self.orbit.prime] + [q for q in self.new.good_primes() if q != self.orbit.prime]
+        polys: dict[int, flint.fmpz_poly] = {}
+        acc: list[list[int]] | None = None
+        piv: list[int] | None = None
+        mod = 1
+        used: list[int] = []
+        for ell in lift_primes():
+            try:
+                E, piv_l, used_l = self._dual_mod(ell, primes, polys)
+            except ZeroDivisionError:
+                continue
+            if acc is None or piv_l != piv or used_l != used:
+                acc = [[int(E[i, j]) for j in range(self.d)] for i in range(E.nrows())]
+                piv, used, mod = piv_l, used_l, ell
+            else:
+                acc = [
+                    [crt_pair(acc[i][j], mod, int(E[i, j]), ell) for j in range(self.d)]
+                    for i in range(len(acc))
+                ]
+                mod *= ell
+            U = _reconstruct(acc, mod)
+            if U is not None and self._verify_dual(U, piv, used, polys):
+                return U
+            if mod.bit_length() > 62 * 40:
+                break
+        raise ArithmeticError(f"level {self.N}: could not lift the dual of an orbit of dim {self.d}")
+
+    def _dual_mod(self, ell: int, primes: list[int], polys: dict) -> tuple:
         S = self.space
-        F = S.dim
-        U = identity(F)  # columns spanning the current candidate dual
-        ops = []
-        for p, e in factor(self.N):
-            Q = p**e
-            W = rows_to_fmpq_mat(S.atkin_lehner_full(Q), F)
-            ops.append(W - identity(F) * self.orbit.signs[p])
-        for p in [self.orbit.prime] + [q for q in self.new.good_primes() if q != self.orbit.prime]:
-            ops.append(("T", p))
-        for op in ops:
+        U = self._sign_block_mod(ell)
+        used = []
+        cache = self.new.__dict__.setdefault("_block_actions", {})
+        for step, q in enumerate(primes):
             if U.ncols() == self.d:
                 break
-            if isinstance(op, tuple):
-                g = charpoly_int(self._op_on_orbit(op[1]))
-                T = S.hecke_full(op[1])
-                # g(T) restricted to the span of U: g(T)·U by Horner on the block
-                AU = _poly_times_block(g, T, U)
+            if q not in polys:
+                polys[q] = charpoly_int(self._op_on_orbit(q))
+            key = (tuple(sorted(self.orbit.signs.items())), q, ell)
+            if step == 0 and key in cache:
+                B = cache[key]
             else:
-                AU = op * U
-            K = _right_kernel_cols(AU)
-            U = U * K
+                B = _block_action(_cached_nmod(S, "T", q, ell), U)
+                if step == 0:
+                    cache[key] = B
+            gB = _nmod_poly_at(polys[q], B, ell)
+            U = U * nmod_kernel_cols(gB)
+            used.append(q)
         if U.ncols() != self.d:
             raise ArithmeticError(
-                f"level {self.N}: dual of an orbit of dim {self.d} has dim {U.ncols()}"
+                f"level {self.N}: dual of an orbit of dim {self.d} has dim {U.ncols()} mod {ell}"
             )
-        return U
+        if self.orbit.prime not in used:
+            used.insert(0, self.orbit.prime)
+            if self.orbit.prime not in polys:
+                polys[self.orbit.prime] = self.orbit.poly
+        E, piv = nmod_column_echelon(U)
+        return E, piv, used
+
+    def _sign_block_mod(self, ell: int) -> flint.nmod_mat:
+        """∩_Q ker(W_Q − ε_Q) mod ℓ as columns; prefixes shared by all orbits."""
+        cache = self.new.__dict__.setdefault("_sign_blocks_mod", {})
+        S = self.space
+        F = S.dim
+        U = None
+        prefix: tuple = (ell,)
+        for p, e in factor(self.N):
+            prefix = prefix + ((p, self.orbit.signs[p]),)
+            if prefix not in cache:
+                A = _cached_nmod(S, "W", p**e, ell)
+                A = A - _nmod_identity(F, ell) * (self.orbit.signs[p] % ell)
+                cache[prefix] = nmod_kernel_cols(A) if U is None else U * nmod_kernel_cols(A * U)
+            U = cache[prefix]
+        return U if U is not None else _nmod_identity(F, ell)
+
+    def _verify_dual(self, U: flint.fmpq_mat, piv: list[int], used: list[int], polys) -> bool:
+        S = self.space
+        for p, e in factor(self.N):
+            if S.atkin_lehner_full_matrix(p**e) * U != U * self.orbit.signs[p]:
+                return False
+        for q in used:
+            TU = S.hecke_full_cached(q) * U
+            A = flint.fmpq_mat(self.d, self.d)
+            for i, r in enumerate(piv):
+                for j in range(self.d):
+                    A[i, j] = TU[r, j]
+            if U * A != TU or charpoly_int_safe(A) != polys[q]:
+                return False
+        return True
 
     def _build(self) -> None:
         S = self.space
         U = self._dual()
         q = self.orbit.prime
-        T = S.hecke_full(q)
+        T = S.hecke_full_cached(q)
         TU = T * U
         # A with T·U = U·A (U has full column rank); solve via a left inverse
         A = _solve_cols(U, TU)
@@ -118,17 +198,16 @@ class EigenForm:
     def _heilbronn_sum(self, n: int, table: np.ndarray, mod: int | None = None) -> np.ndarray:
         """Σ over Merel's X_n of the table rows at x0·h (weight-k coefficients)."""
         S = self.space
-        i, j = divmod(self.x0, S.psi)
-        a, b, c, d = merel(n)
-        u, v = int(S.P1.c[j]), int(S.P1.d[j])
-        idx = S.P1.index(u * a + v * c, u * b + v * d)
-        ok = idx >= 0
+        i = self.x0 // S.psi
+        ok, targets = S.heilbronn_targets(n, self.x0)
         if S.w == 0:
-            rows = table[idx[ok]]
+            rows = table[targets]
             s = rows.sum(axis=0) if len(rows) else np.zeros(table.shape[1], dtype=table.dtype)
             return s % mod if mod else s
+        a, b, c, d = merel(n)
+        idx = dict(zip(ok.tolist(), targets.tolist()))
         acc = np.zeros(table.shape[1], dtype=object)
-        for h in np.nonzero(ok)[0].tolist():
+        for h in ok.tolist():
             A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), S.w)[i]
             t = int(idx[h])
             for m, coef in enumerate(A):
@@ -183,6 +262,90 @@ class EigenForm:
                 raise ZeroDivisionError(f"φ(x0) is not invertible modulo {ell}")
             cache[key] = s * flint.nmod_poly([pow(int(g.coeffs()[0]), -1, ell)], ell)
         return cache[key]
+
+
+def charpoly_int_safe(A: flint.fmpq_mat):
+    try:
+        return charpoly_int(A)
+    except ArithmeticError:
+        return None
+
+
+def rows_to_nmod(rows: list[dict], ncols: int, ell: int) -> flint.nmod_mat:
+    """Sparse rational rows reduced modulo ℓ (raises ZeroDivisionError on a bad ℓ)."""
+    out = flint.nmod_mat(len(rows), ncols, ell)
+    for r, row in enumerate(rows):
+        for c, v in row.items():
+            if isinstance(v, int):
+                out[r, c] = v % ell
+            else:
+                den = v.denominator % ell
+                if den == 0:
+                    raise ZeroDivisionError(f"denominator divisible by {ell}")
+                out[r, c] = v.numerator % ell * pow(den, -1, ell) % ell
+    return out
+
+
+def _cached_nmod(S, kind: str, n: int, ell: int) -> flint.nmod_mat:
+    """T_n ("T") or W_n ("W") on the whole space modulo ℓ, cached on the space."""
+    cache = S.__dict__.setdefault("_nmod_cache", {})
+    key = (kind, n, ell)
+    if key not in cache:
+        rows = S.hecke_rows(n) if kind == "T" else S.atkin_lehner_full(n)
+        cache[key] = rows_to_nmod(rows, S.dim, ell)
+    return cache[key]
+
+
+def _nmod_identity(n: int, ell: int) -> flint.nmod_mat:
+    out = flint.nmod_mat(n, n, ell)
+    for i in range(n):
+        out[i, i] = 1
+    return out
+
+
+def _block_action(T: flint.nmod_mat, U: flint.nmod_mat) -> flint.nmod_mat:
+    """B with T·U = U·B (U of full column rank, T·U ⊂ span U), over F_ℓ."""
+    E, piv = nmod_column_echelon(U)
+    TE = T * E
+    m = E.ncols()
+    B = flint.nmod_mat(m, m, U.modulus())
+    for i, r in enumerate(piv):
+        for j in range(m):
+            B[i, j] = TE[r, j]
+    if E * B != TE:
+        raise ZeroDivisionError("block not stable modulo ℓ (bad prime)")
+    # express in the basis U: U = E·C with C = U[piv, :]
+    C = flint.nmod_mat(m, m, U.modulus())
+    for i, r in enumerate(piv):
+        for j in range(m):
+            C[i, j] = U[r, j]
+    return C.inv() * B * C
+
+
+def _nmod_poly_at(g: flint.fmpz_poly, B: flint.nmod_mat, ell: int) -> flint.nmod_mat:
+    m = B.nrows()
+    R = flint.nmod_mat(m, m, ell)
+    I = _nmod_identity(m, ell)
+    for c in reversed([int(x) for x in g.coeffs()]):
+        R = R * B
+        if c % ell:
+            R = R + I * (c % ell)
+    return R
+
+
+def _reconstruct(acc: list[list[int]], mod: int) -> flint.fmpq_mat | None:
+    rows, cols = len(acc), len(acc[0]) if acc else 0
+    out = flint.fmpq_mat(rows, cols)
+    for i in range(rows):
+        for j in range(cols):
+            a = acc[i][j]
+            if a == 0:
+                continue
+            nd = rational_reconstruction(a, mod)
+            if nd is None:
+                return None
+            out[i, j] = flint.fmpq(nd[0], nd[1])
+    return out
 
 
 def _poly_times_block(g: flint.fmpz_poly, T: flint.fmpq_mat, U: flint.fmpq_mat) -> flint.fmpq_mat:

@@ -121,23 +121,33 @@ def canonical_polynomial(K: NumberField, elements: list) -> tuple[flint.fmpz_pol
             if U[i, j] != 0:
                 e = e + basis[j] * int(U[i, j])
         reduced.append(e)
-    cands = list(reduced)
-    for i in range(d):
-        for j in range(i + 1, d):
-            cands += [reduced[i] + reduced[j], reduced[i] - reduced[j]]
-    best = None
-    for e in cands:
-        for s in (1, -1):
-            a = e * s
-            if not K.is_generator(a):
-                continue
-            g = _int_poly(K.charpoly(a))
-            key = _key([int(c) for c in g.coeffs()])
-            if best is None or key < best[0]:
-                best = (key, g, a)
+    best = _best_generator(K, reduced)
+    if best is None:
+        pairs = []
+        for i in range(d):
+            for j in range(i + 1, d):
+                pairs += [reduced[i] + reduced[j], reduced[i] - reduced[j]]
+        best = _best_generator(K, pairs)
     if best is None:
         raise ArithmeticError("no generator of K among the reduced elements")
     return best[1], best[2]
+
+
+def _best_generator(K: NumberField, cands: list):
+    """Smallest (by the documented key) minimal polynomial of degree d among ±cands."""
+    best = None
+    for e in cands:
+        g = _int_poly(K.charpoly(e))
+        if g.gcd(g.derivative()).degree() != 0:
+            continue
+        for s in (1, -1):
+            gs = g if s == 1 else flint.fmpz_poly(
+                [c * (-1) ** (i + K.d) for i, c in enumerate(g.coeffs())]
+            )
+            key = _key([int(c) for c in gs.coeffs()])
+            if best is None or key < best[0]:
+                best = (key, gs, e * s)
+    return best
 
 
 def _hnf_basis(K: NumberField, elements: list) -> list:

@@ -13,6 +13,7 @@ import time
 from math import gcd, isqrt
 
 import flint
+import numpy as np
 
 from builder.arith import (
     check_level,
@@ -52,7 +53,9 @@ def compute(N: int, k: int, params: Params, char_index: int = 0) -> SpaceRecord:
     ncusp = len(point_cusp_classes(S.P1)[1])
     dim_eis = ncusp - 1 if k == 2 else ncusp
     V = NewSpace(S)
-    forms = [_orbit_data(V, o, params) for o in V.orbits()]
+    eigs = [EigenForm(V, o) for o in V.orbits()]
+    traces = all_traces(eigs, params.trace_bound)
+    forms = [_orbit_data(E, t, params) for E, t in zip(eigs, traces)]
     forms.sort(key=lambda f: f["_key"])
     records = []
     for i, f in enumerate(forms, start=1):
@@ -78,11 +81,10 @@ def _params_dict(p: Params) -> dict:
 # -- one orbit ------------------------------------------------------------------
 
 
-def _orbit_data(V: NewSpace, orbit, params: Params) -> dict:
-    E = EigenForm(V, orbit)
+def _orbit_data(E: EigenForm, traces: list[int], params: Params) -> dict:
+    V, orbit = E.new, E.orbit
     N, k, d = V.N, V.k, orbit.dim
     B = params.trace_bound
-    traces = hecke_traces(E, B)
     exact = d <= params.dim_cap
     if exact:
         poly, beta, ap = _exact_field_data(E, params.ap_bound)
@@ -187,30 +189,151 @@ def deligne_trace_bound(d: int, k: int, B: int) -> int:
 
 
 def hecke_traces(E: EigenForm, B: int) -> list[int]:
-    """[Tr_{K/Q} a_n for n = 1..B], exact (modular arithmetic above Deligne's bound)."""
-    bound = deligne_trace_bound(E.d, E.k, B)
-    residues, moduli = [], []
-    for ell in trace_primes(bound * 4):
-        try:
-            residues.append(_traces_mod(E, B, ell))
-        except ZeroDivisionError:
-            continue
-        moduli.append(ell)
-        prod = 1
-        for m in moduli:
-            prod *= m
-        if prod > 2 * bound:
+    """[Tr_{K/Q} a_n for n = 1..B] for one orbit (see all_traces)."""
+    return all_traces([E], B)[0]
+
+
+def all_traces(eigs: list[EigenForm], B: int) -> list[list[int]]:
+    """Exact [Tr a_n, n = 1..B] for every orbit, sharing the Heilbronn sums.
+
+    Rational orbits use exact integers.  Others work in F_ℓ[x]/(f) for primes
+    ℓ < 2^31 whose product exceeds twice Deligne's bound d·σ0(n)·n^((k−1)/2),
+    then lift by CRT to the symmetric residue: exact, since |Tr a_n| is
+    below the bound (Deligne's theorem).
+    """
+    out: list = [None] * len(eigs)
+    for i, E in enumerate(eigs):
+        if E.d == 1:
+            out[i] = _rational_traces(E, B)
+    todo = [i for i in range(len(eigs)) if out[i] is None]
+    if not todo:
+        return out
+    need = {i: 2 * deligne_trace_bound(eigs[i].d, eigs[i].k, B) for i in todo}
+    residues: dict[int, list] = {i: [] for i in todo}
+    moduli: dict[int, list] = {i: [] for i in todo}
+    for ell in trace_primes(max(need.values()) * 2**40):
+        active = [i for i in todo if _prod(moduli[i]) <= need[i]]
+        if not active:
             break
-    M = 1
-    for m in moduli:
-        M *= m
-    if M <= 2 * bound:
-        raise ArithmeticError("not enough good primes for the trace lift")
-    out = []
-    for n in range(B):
-        x = _crt([r[n] for r in residues], moduli)
-        out.append(x - M if x > M // 2 else x)
+        ok = []
+        for i in active:
+            try:
+                eigs[i]._x0_inv_mod(ell)
+                ok.append(i)
+            except ZeroDivisionError:
+                continue
+        for i, tr in zip(ok, _traces_mod_many([eigs[i] for i in ok], B, ell)):
+            residues[i].append(tr)
+            moduli[i].append(ell)
+    for i in todo:
+        M = _prod(moduli[i])
+        if M <= need[i]:
+            raise ArithmeticError("not enough good primes for the trace lift")
+        vals = []
+        for n in range(B):
+            x = _crt([r[n] for r in residues[i]], moduli[i])
+            vals.append(x - M if x > M // 2 else x)
+        out[i] = vals
     return out
+
+
+def _prod(xs: list[int]) -> int:
+    p = 1
+    for x in xs:
+        p *= x
+    return p
+
+
+def _rational_traces(E: EigenForm, B: int) -> list[int]:
+    """a_n ∈ Z for n ≤ B of a rational orbit, exactly."""
+    den = int(E._phi[E.x0][0])
+    a = [0] * (B + 1)
+    a[1] = 1
+    for p in primes_up_to(B):
+        s = int(E._heilbronn_sum(p, E._phi)[0])
+        if s % den:
+            raise ArithmeticError(f"a_{p} is not an integer for a rational orbit")
+        a[p] = s // den
+    _fill_multiplicative(a, B, E.N, E.k, lambda x, y: x * y, 1)
+    return a[1:]
+
+
+def _fill_multiplicative(a: list, B: int, N: int, k: int, mul, one) -> None:
+    """Fill a[n] from a[p]: Hecke recursion at prime powers, then multiplicativity."""
+    for p in primes_up_to(B):
+        pk1 = p ** (k - 1)
+        bad = N % p == 0
+        prev2, prev, q = one, a[p], p
+        while q * p <= B:
+            nxt = mul(a[p], prev) if bad else mul(a[p], prev) - pk1 * prev2
+            prev2, prev = prev, nxt
+            q *= p
+            a[q] = nxt
+    for n in range(2, B + 1):
+        f = factor(n)
+        if len(f) > 1:
+            val = one
+            for p, e in f:
+                val = mul(val, a[p**e])
+            a[n] = val
+
+
+def _traces_mod_many(eigs: list[EigenForm], B: int, ell: int) -> list[list[int]]:
+    """Traces mod ℓ for several orbits; one Heilbronn sum per (x0, p)."""
+    groups: dict[int, list[int]] = {}
+    for i, E in enumerate(eigs):
+        groups.setdefault(E.x0, []).append(i)
+    aps: list[dict] = [dict() for _ in eigs]
+    for _x0, members in groups.items():
+        tables = [eigs[i]._mod_table(ell) for i in members]
+        stacked = np.concatenate(tables, axis=1) if len(tables) > 1 else tables[0]
+        lead = eigs[members[0]]
+        offs = np.cumsum([0] + [eigs[i].d for i in members])
+        for p in primes_up_to(B):
+            tot = lead._heilbronn_sum(p, stacked, ell)
+            for t, i in enumerate(members):
+                E = eigs[i]
+                v = flint.nmod_poly([int(x) for x in tot[offs[t] : offs[t + 1]]], ell)
+                aps[i][p] = (v * E._x0_inv_mod(ell)) % E._f_mod(ell)
+    out = []
+    for i, E in enumerate(eigs):
+        f = E._f_mod(ell)
+        one = flint.nmod_poly([1], ell)
+        a: list = [None] * (B + 1)
+        a[1] = one
+        for p, v in aps[i].items():
+            a[p] = v
+
+        def mul(x, y, f=f):
+            return (x * y) % f
+
+        _fill_multiplicative_mod(a, B, E.N, E.k, mul, one, ell)
+        ps = _power_sums_mod(E.orbit.poly, E.d, ell)
+        tr = []
+        for n in range(1, B + 1):
+            c = [int(x) for x in a[n].coeffs()]
+            tr.append(sum(ci * ps[j] for j, ci in enumerate(c)) % ell)
+        out.append(tr)
+    return out
+
+
+def _fill_multiplicative_mod(a, B, N, k, mul, one, ell) -> None:
+    for p in primes_up_to(B):
+        pk1 = flint.nmod_poly([pow(p, k - 1, ell)], ell)
+        bad = N % p == 0
+        prev2, prev, q = one, a[p], p
+        while q * p <= B:
+            nxt = mul(a[p], prev) if bad else (mul(a[p], prev) - mul(pk1, prev2))
+            prev2, prev = prev, nxt
+            q *= p
+            a[q] = nxt
+    for n in range(2, B + 1):
+        f = factor(n)
+        if len(f) > 1:
+            val = one
+            for p, e in f:
+                val = mul(val, a[p**e])
+            a[n] = val
 
 
 def _crt(res: list[int], mods: list[int]) -> int:
@@ -220,37 +343,6 @@ def _crt(res: list[int], mods: list[int]) -> int:
         x += m * t
         m *= q
     return x
-
-
-def _traces_mod(E: EigenForm, B: int, ell: int) -> list[int]:
-    f = E._f_mod(ell)
-    d = E.d
-    ps = _power_sums_mod(E.orbit.poly, d, ell)
-    one = flint.nmod_poly([1], ell)
-    a: list = [None] * (B + 1)
-    a[1] = one
-    for p in primes_up_to(B):
-        ap = E.ap_mod(p, ell)
-        a[p] = ap
-        bad = E.N % p == 0
-        pk1 = flint.nmod_poly([pow(p, E.k - 1, ell)], ell)
-        prev2, prev, q = one, ap, p
-        while q * p <= B:
-            nxt = (ap * prev) % f if bad else (ap * prev - pk1 * prev2) % f
-            prev2, prev = prev, nxt
-            q *= p
-            a[q] = nxt
-    for n in range(2, B + 1):
-        if a[n] is None:
-            val = one
-            for p, e in factor(n):
-                val = (val * a[p**e]) % f
-            a[n] = val
-    out = []
-    for n in range(1, B + 1):
-        c = [int(x) for x in a[n].coeffs()]
-        out.append(sum(ci * ps[i] for i, ci in enumerate(c)) % ell)
-    return out
 
 
 def _power_sums_mod(f: flint.fmpz_poly, d: int, ell: int) -> list[int]:
@@ -359,4 +451,4 @@ def _lvalue(E: EigenForm, root: int) -> tuple[bool | None, str | None]:
     return zero, ratio
 
 
-__all__ = ["compute", "hecke_traces", "exact_an", "cm_discriminant", "kronecker", "is_prime"]
+__all__ = ["compute", "hecke_traces", "all_traces", "exact_an", "cm_discriminant", "kronecker", "is_prime"]

@@ -123,7 +123,7 @@ class Newform(Base):
     root_number: Mapped[int] = mapped_column(Integer)
     is_cm: Mapped[bool] = mapped_column(Boolean)
     cm_disc: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
-    lvalue_zero: Mapped[bool] = mapped_column(Boolean)
+    lvalue_zero: Mapped[bool | None] = mapped_column(Boolean, nullable=True)  # None: not decided
     l_ratio: Mapped[str | None] = mapped_column(Text, nullable=True)
     hecke_poly_2: Mapped[list | None] = mapped_column(JSON, nullable=True)
     has_ap: Mapped[bool] = mapped_column(Boolean)  # exact a_p stored in eigenvalues

@@ -167,7 +167,8 @@ def _newform_rows(conn):
         for name in ("traces", "field_poly", "hecke_poly_2"):
             row[name], row[name + "_text"] = _split_int_list(row[name])
         row["is_cm"] = bool(row["is_cm"])
-        row["lvalue_zero"] = bool(row["lvalue_zero"])
+        if row["lvalue_zero"] is not None:
+            row["lvalue_zero"] = bool(row["lvalue_zero"])
         row["has_ap"] = bool(row["has_ap"])
         yield row
 

@@ -79,6 +79,10 @@ class P1:
         self.c = np.array(reps_c, dtype=np.int64)
         self.d = np.array(reps_d, dtype=np.int64)
         self.size = count
+        self._slot_list = self._slot.tolist()
+        self._off_list = self._off.tolist()
+        self._inv_list = self._inv.tolist()
+        self._idx_list = self._idx.tolist()
 
     @staticmethod
     def _lift(g: int, M: int, r: int) -> int:
@@ -100,22 +104,30 @@ class P1:
         c = np.mod(np.asarray(c, dtype=np.int64), N)
         d = np.mod(np.asarray(d, dtype=np.int64), N)
         g = np.gcd(c, N)
-        g = np.where(g == 0, N, g)
+        g[g == 0] = N
         s = self._slot[g]
         M = self._mod[s]
         off = self._off[s]
-        cq = (c // g) % M
-        r = (d % M) * self._inv[off + cq] % M
+        r = (d % M) * self._inv[off + (c // g) % M] % M
         out = self._idx[off + r]
-        bad = np.gcd(np.gcd(c, d), N) != 1
-        if N == 1:
-            bad[:] = False
-        out = np.where(bad, -1, out)
+        if N > 1:
+            # gcd(c, d, N) = gcd(d, gcd(c, N))
+            out[np.gcd(d, g) != 1] = -1
         return out
 
     def index_one(self, c: int, d: int) -> int:
-        """Index of a single point (c : d); -1 if not in P¹(Z/NZ)."""
-        return int(self.index(np.array([c]), np.array([d]))[0])
+        """Index of a single point (c : d); -1 if not in P¹(Z/NZ) (scalar fast path)."""
+        N = self.N
+        c %= N
+        d %= N
+        if N > 1 and gcd(gcd(c, d), N) != 1:
+            return -1
+        g = gcd(c, N) or N
+        s = self._slot_list[g]
+        M = N // g
+        off = self._off_list[s]
+        r = (d % M) * self._inv_list[off + (c // g) % M] % M
+        return self._idx_list[off + r]
 
     def class_data(self) -> tuple[np.ndarray, np.ndarray]:
         """For each point, the pair (g, r) of its normal form."""

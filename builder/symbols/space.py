@@ -23,6 +23,7 @@ from functools import cached_property, lru_cache
 from math import gcd
 
 import flint
+import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
 from builder.symbols.cusps import boundary_classes
@@ -48,12 +49,21 @@ def _to_fmpq(x) -> flint.fmpq:
 
 
 def rows_to_fmpq_mat(rows: list[Vec], ncols: int) -> flint.fmpq_mat:
-    """Dense exact matrix from sparse rows."""
-    M = flint.fmpq_mat(len(rows), ncols)
+    """Dense exact matrix from sparse rows (integer rows go through fmpz_mat)."""
+    n = len(rows)
+    den = 1
+    for row in rows:
+        for v in row.values():
+            if isinstance(v, Fraction):
+                den = den * v.denominator // gcd(den, v.denominator)
+    flat = [0] * (n * ncols)
     for r, row in enumerate(rows):
+        base = r * ncols
         for c, v in row.items():
-            M[r, c] = _to_fmpq(v)
-    return M
+            flat[base + c] = int(v * den) if den != 1 else int(v)
+    Z = flint.fmpz_mat(n, ncols, flat) if n and ncols else flint.fmpz_mat(n, ncols)
+    M = flint.fmpq_mat(Z)
+    return M / den if den != 1 else M
 
 
 def convergents(u: int, v: int) -> list[tuple[int, int]]:
@@ -193,7 +203,7 @@ class SymbolSpace:
         """Matrix of T_n on the whole symbol space (free basis, rows = images)."""
         n = check_index(n)
         if self.w == 0:
-            return rows_to_fmpq_mat([self.hecke_on_symbol(n, x) for x in self.pres.free], self.dim)
+            return rows_to_fmpq_mat(self.hecke_rows(n), self.dim)
         # weight > 2: Z[f, symbol] = Σ_h coefficient of that symbol in [x_f]·h, then Z·C
         a, b, c, d = (arr.tolist() for arr in merel(n))
         acts = [poly_action(a[h], b[h], c[h], d[h], self.w) for h in range(len(a))]
@@ -270,6 +280,7 @@ class SymbolSpace:
         # [[Q x, 1], [N z, Q]] has det Q² x − N z = Q (Q x − R z) = Q
         return (Q * x, 1, N * z, Q)
 
+    @lru_cache(maxsize=16)
     def atkin_lehner_full(self, Q: int) -> list[Vec]:
         """Rows of W_Q on the whole symbol space, normalised so that W_Q² = 1.
 
@@ -295,6 +306,42 @@ class SymbolSpace:
             vec = self.modular_symbol(p2, _reduce(alpha), _reduce(beta))
             rows.append({t: v * scale for t, v in vec.items()} if scale != 1 else vec)
         return rows
+
+    @lru_cache(maxsize=16)
+    def atkin_lehner_full_matrix(self, Q: int) -> flint.fmpq_mat:
+        """W_Q on the whole symbol space as an exact matrix (cached)."""
+        return rows_to_fmpq_mat(self.atkin_lehner_full(Q), self.dim)
+
+    @lru_cache(maxsize=16)
+    def hecke_rows(self, n: int) -> list[Vec]:
+        """Sparse rows of T_n on the whole space (free basis), cached."""
+        if self.w == 0:
+            return [self.hecke_on_symbol(n, x) for x in self.pres.free]
+        M = self.hecke_full_cached(n)
+        rows = []
+        for i in range(M.nrows()):
+            row = {}
+            for j in range(M.ncols()):
+                v = M[i, j]
+                if v != 0:
+                    row[j] = Fraction(int(v.p), int(v.q)) if v.q != 1 else int(v.p)
+            rows.append(row)
+        return rows
+
+    @lru_cache(maxsize=16)
+    def hecke_full_cached(self, n: int) -> flint.fmpq_mat:
+        """hecke_full(n), cached."""
+        return self.hecke_full(n)
+
+    @lru_cache(maxsize=4096)
+    def heilbronn_targets(self, n: int, x: int) -> tuple:
+        """For T_n of Manin symbol x: (valid h indices, target P¹ indices), cached."""
+        i, j = divmod(x, self.psi)
+        a, b, c, d = merel(n)
+        u, v = int(self.P1.c[j]), int(self.P1.d[j])
+        idx = self.P1.index(u * a + v * c, u * b + v * d)
+        ok = np.nonzero(idx >= 0)[0]
+        return ok, idx[ok]
 
     def atkin_lehner(self, Q: int) -> flint.fmpq_mat:
         """W_Q on the cuspidal subspace, normalised to an involution."""
