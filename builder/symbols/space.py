@@ -246,25 +246,46 @@ class SymbolSpace:
     def hecke_matrix(self, n: int) -> flint.fmpq_mat:
         """Exact matrix of T_n on the cuspidal subspace (rows = images of the basis)."""
         n = check_index(n)
-        return self.restrict(self.hecke_full(n))
+        return self.restrict(self.hecke_rows(n))
 
     def restrict(self, T) -> flint.fmpq_mat:
         """Matrix on the cuspidal basis of an operator given on the free basis.
 
-        ``T`` is an fmpq_mat or a list of sparse rows; the operator must preserve
-        the cuspidal subspace (Hecke operators and W_Q do).
+        ``T`` is a list of sparse rows (fast path) or an fmpq_mat; the operator
+        must preserve the cuspidal subspace (Hecke operators and W_Q do).  The
+        cuspidal basis is [I | X] up to column order (rref), so the restriction
+        is T[piv, piv] + X·T[nonpiv, piv]: cost s²·e with e = dim Eisenstein.
         """
         s = self.dim_cuspidal
         if s == 0:
             return flint.fmpq_mat(0, 0)
-        if isinstance(T, list):
-            T = rows_to_fmpq_mat(T, self.dim)
-        image = self.cusp_basis * T
-        out = flint.fmpq_mat(s, s)
-        for r in range(s):
-            for c, p in enumerate(self.cusp_pivots):
-                out[r, c] = image[r, p]
-        return out
+        if not isinstance(T, list):
+            T = [
+                {j: Fraction(int(T[i, j].p), int(T[i, j].q)) for j in range(T.ncols()) if T[i, j] != 0}
+                for i in range(T.nrows())
+            ]
+        piv = self.cusp_pivots
+        col = {p: c for c, p in enumerate(piv)}
+        nonpiv = self._nonpivots
+        A1 = rows_to_fmpq_mat([{col[j]: v for j, v in T[p].items() if j in col} for p in piv], s)
+        if not nonpiv:
+            return A1
+        A2 = rows_to_fmpq_mat([{col[j]: v for j, v in T[p].items() if j in col} for p in nonpiv], s)
+        return A1 + self._cusp_X * A2
+
+    @cached_property
+    def _nonpivots(self) -> list[int]:
+        ps = set(self.cusp_pivots)
+        return [c for c in range(self.dim) if c not in ps]
+
+    @cached_property
+    def _cusp_X(self) -> flint.fmpq_mat:
+        """The cuspidal basis restricted to the non-pivot columns (s × e)."""
+        X = flint.fmpq_mat(self.dim_cuspidal, len(self._nonpivots))
+        for r in range(self.dim_cuspidal):
+            for c, p in enumerate(self._nonpivots):
+                X[r, c] = self.cusp_basis[r, p]
+        return X
 
     # -- Atkin–Lehner ---------------------------------------------------------------
     def atkin_lehner_matrix_for(self, Q: int) -> tuple[int, int, int, int]:
