@@ -30,14 +30,14 @@ def _one(N: int) -> dict:
     from builder.forms.eigen import EigenForm
     from builder.forms.newspace import NewSpace
     from builder.forms.record import Params
-    from builder.symbols.heilbronn import merel
+    from builder.symbols.heilbronn import hecke_matrices
     from builder.symbols.space import cuspidal_space
 
     params = Params()
     steps = {}
     t = time.perf_counter()
     for p in primes_up_to(params.trace_bound):
-        merel(p)
+        hecke_matrices(p)
     steps["heilbronn sets (once per process)"] = time.perf_counter() - t
     t0 = time.perf_counter()
     t = t0

@@ -40,7 +40,7 @@ from builder.linalg import (
     rational_reconstruction,
     restrict,
 )
-from builder.symbols.heilbronn import merel
+from builder.symbols.heilbronn import hecke_matrices, merel
 from builder.symbols.manin import poly_action
 from builder.symbols.space import SymbolSpace, rows_to_fmpq_mat
 
@@ -204,7 +204,7 @@ class EigenForm:
             rows = table[targets]
             s = rows.sum(axis=0) if len(rows) else np.zeros(table.shape[1], dtype=table.dtype)
             return s % mod if mod else s
-        a, b, c, d = merel(n)
+        a, b, c, d = hecke_matrices(n)
         idx = dict(zip(ok.tolist(), targets.tolist()))
         acc = np.zeros(table.shape[1], dtype=object)
         for h in ok.tolist():

@@ -57,3 +57,50 @@ def merel(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     C = c0[rep] + t * m[rep]
     D = (n + B * C) // A
     return A, B, C, D
+
+
+@lru_cache(maxsize=4096)
+def cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Heilbronn matrices of determinant p for an odd prime p from continued fractions.
+
+    [Cr] §2.4: [[1, 0], [0, p]] together with, for every r with |r| < p/2, the
+    matrices [[x_i, x_{i+1}], [y_i, y_{i+1}]] met while expanding −p/r by the
+    nearest-integer continued fraction (x_0 = p, x_1 = −r, y_0 = 0, y_1 = 1,
+    x_{i+1} = q_i x_i − x_{i−1}, the same for y).  Every step keeps the
+    determinant p.  About (12 log 2/π²)·p·log p matrices, a third of X_p, and
+    T_p is the same sum as with Merel's set (checked in tests/test_heilbronn.py).
+    Ties in the rounding go to the even integer (exact integer arithmetic).
+    """
+    if p < 3 or p % 2 == 0:
+        raise ValueError(f"cremona_prime needs an odd prime, got {p}")
+    out = [(1, 0, 0, p)]
+    for r in range(-(p // 2), p // 2 + 1):
+        x1, x2, y1, y2, a, b = p, -r, 0, 1, -p, r
+        out.append((x1, x2, y1, y2))
+        while b != 0:
+            q = _nearest(a, b)
+            a, b = -b, a - b * q
+            x1, x2 = x2, q * x2 - x1
+            y1, y2 = y2, q * y2 - y1
+            out.append((x1, x2, y1, y2))
+    arr = np.array(out, dtype=np.int64)
+    return arr[:, 0], arr[:, 1], arr[:, 2], arr[:, 3]
+
+
+def hecke_matrices(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The Heilbronn set used for T_n: Cremona's for odd primes, Merel's otherwise."""
+    from builder.arith import is_prime
+
+    if n > 2 and n % 2 and is_prime(n):
+        return cremona_prime(n)
+    return merel(n)
+
+
+def _nearest(a: int, b: int) -> int:
+    """The integer nearest to a/b (b ≠ 0), ties to the even one."""
+    if b < 0:
+        a, b = -a, -b
+    q, r = divmod(a, b)
+    if 2 * r > b or (2 * r == b and q % 2):
+        q += 1
+    return q

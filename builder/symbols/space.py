@@ -27,7 +27,7 @@ import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
 from builder.symbols.cusps import boundary_classes
-from builder.symbols.heilbronn import merel
+from builder.symbols.heilbronn import hecke_matrices, merel
 from builder.symbols.manin import ManinPresentation, poly_action
 
 Vec = dict  # sparse vector {position: int | Fraction}
@@ -180,7 +180,7 @@ class SymbolSpace:
         """T_n applied to Manin symbol number x, by Merel's formula; free coordinates."""
         n = check_index(n)
         i, j = divmod(x, self.psi)
-        a, b, c, d = merel(n)
+        a, b, c, d = hecke_matrices(n)
         u, v = int(self.P1.c[j]), int(self.P1.d[j])
         idx = self.P1.index(u * a + v * c, u * b + v * d)
         out: Vec = {}
@@ -205,7 +205,7 @@ class SymbolSpace:
         if self.w == 0:
             return rows_to_fmpq_mat(self.hecke_rows(n), self.dim)
         # weight > 2: Z[f, symbol] = Σ_h coefficient of that symbol in [x_f]·h, then Z·C
-        a, b, c, d = (arr.tolist() for arr in merel(n))
+        a, b, c, d = (arr.tolist() for arr in hecke_matrices(n))
         acts = [poly_action(a[h], b[h], c[h], d[h], self.w) for h in range(len(a))]
         F, psi = self.dim, self.psi
         Z = flint.fmpz_mat(F, self.pres.nsym)
@@ -358,7 +358,7 @@ class SymbolSpace:
     def heilbronn_targets(self, n: int, x: int) -> tuple:
         """For T_n of Manin symbol x: (valid h indices, target P¹ indices), cached."""
         i, j = divmod(x, self.psi)
-        a, b, c, d = merel(n)
+        a, b, c, d = hecke_matrices(n)
         u, v = int(self.P1.c[j]), int(self.P1.d[j])
         idx = self.P1.index(u * a + v * c, u * b + v * d)
         ok = np.nonzero(idx >= 0)[0]
