@@ -16,6 +16,7 @@ from rich.console import Console
 from rich.table import Table
 
 from builder.pipeline.errors import BadInput, Interrupted, NfbError
+from builder.tables.commands import find_command, report_command, sql_command, verify_command
 
 app = typer.Typer(
     name="nfb",
@@ -286,6 +287,12 @@ def show(
             out.print("  exact a_p not stored (dimension above dim_cap)")
     except (NfbError, Interrupted) as e:
         _fail(e)
+
+
+app.command("find")(find_command)
+app.command("sql")(sql_command)
+app.command("verify")(verify_command)
+app.command("report")(report_command)
 
 
 def main() -> None:  # pragma: no cover

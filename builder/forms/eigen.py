@@ -32,7 +32,6 @@ from builder.forms.newspace import NewSpace, Orbit
 from builder.linalg import (
     charpoly_int,
     crt_pair,
-    identity,
     lift_primes,
     nmod_column_echelon,
     nmod_kernel_cols,
@@ -40,9 +39,9 @@ from builder.linalg import (
     rational_reconstruction,
     restrict,
 )
-from builder.symbols.heilbronn import hecke_matrices, merel
+from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import poly_action
-from builder.symbols.space import SymbolSpace, rows_to_fmpq_mat
+from builder.symbols.space import SymbolSpace
 
 
 def _right_kernel_cols(A: flint.fmpq_mat) -> flint.fmpq_mat:
@@ -205,7 +204,7 @@ class EigenForm:
             s = rows.sum(axis=0) if len(rows) else np.zeros(table.shape[1], dtype=table.dtype)
             return s % mod if mod else s
         a, b, c, d = hecke_matrices(n)
-        idx = dict(zip(ok.tolist(), targets.tolist()))
+        idx = dict(zip(ok.tolist(), targets.tolist(), strict=False))
         acc = np.zeros(table.shape[1], dtype=object)
         for h in ok.tolist():
             A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), S.w)[i]

@@ -31,7 +31,7 @@ from builder.forms.record import NewformRecord, Params, SpaceRecord, make_label
 from builder.forms.winding import l_ratio
 from builder.linalg import charpoly_int, restrict
 from builder.symbols.cusps import point_cusp_classes
-from builder.symbols.space import cuspidal_space
+from builder.symbols.space import clear_caches, cuspidal_space
 
 FIELD_BOUND = 50  # a_n for n ≤ 50·2^j span the order used for the field polynomial
 
@@ -43,6 +43,13 @@ def compute(N: int, k: int, params: Params, char_index: int = 0) -> SpaceRecord:
     if char_index != 0:
         raise ValueError(f"char_index must be 0 (trivial character) for now, got {char_index}")
     t0 = time.perf_counter()
+    try:
+        return _compute(N, k, params, t0)
+    finally:
+        clear_caches()  # bounded memory across the units of a long run
+
+
+def _compute(N: int, k: int, params: Params, t0: float) -> SpaceRecord:
     base = dict(level=N, weight=k, char_index=0, params=_params_dict(params))
     if k % 2:
         return SpaceRecord(
@@ -55,7 +62,7 @@ def compute(N: int, k: int, params: Params, char_index: int = 0) -> SpaceRecord:
     V = NewSpace(S)
     eigs = [EigenForm(V, o) for o in V.orbits()]
     traces = all_traces(eigs, params.trace_bound)
-    forms = [_orbit_data(E, t, params) for E, t in zip(eigs, traces)]
+    forms = [_orbit_data(E, t, params) for E, t in zip(eigs, traces, strict=False)]
     forms.sort(key=lambda f: f["_key"])
     records = []
     for i, f in enumerate(forms, start=1):
@@ -222,7 +229,7 @@ def all_traces(eigs: list[EigenForm], B: int) -> list[list[int]]:
                 ok.append(i)
             except ZeroDivisionError:
                 continue
-        for i, tr in zip(ok, _traces_mod_many([eigs[i] for i in ok], B, ell)):
+        for i, tr in zip(ok, _traces_mod_many([eigs[i] for i in ok], B, ell), strict=False):
             residues[i].append(tr)
             moduli[i].append(ell)
     for i in todo:
@@ -338,7 +345,7 @@ def _fill_multiplicative_mod(a, B, N, k, mul, one, ell) -> None:
 
 def _crt(res: list[int], mods: list[int]) -> int:
     x, m = 0, 1
-    for r, q in zip(res, mods):
+    for r, q in zip(res, mods, strict=False):
         t = ((r - x) * pow(m, -1, q)) % q
         x += m * t
         m *= q

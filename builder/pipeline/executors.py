@@ -83,6 +83,12 @@ class Executor:
 
     def __init__(self) -> None:
         self.in_flight: list[Unit] = []
+        self.on_change = None  # called with in_flight when it changes (progress display)
+
+    def _changed(self, in_flight: list[Unit]) -> None:
+        self.in_flight = in_flight
+        if self.on_change is not None:
+            self.on_change(in_flight)
 
     def run(self, units: list[Unit], params: dict) -> Iterator[Outcome]:
         raise NotImplementedError
@@ -101,10 +107,10 @@ class SerialExecutor(Executor):
 
     def run(self, units: list[Unit], params: dict) -> Iterator[Outcome]:
         for unit in units:
-            self.in_flight = [unit]
+            self._changed([unit])
             out = compute_task(unit, params)
-            self.in_flight = []
             yield out
+        self._changed([])
 
 
 class PoolExecutor(Executor):
@@ -119,6 +125,7 @@ class PoolExecutor(Executor):
 
         self.workers = workers
         self.ahead = ahead or 2 * workers
+        self._closed = False
         self.pool = ProcessPoolExecutor(
             max_workers=workers, mp_context=mp.get_context("spawn"), initializer=_worker_init
         )
@@ -142,7 +149,7 @@ class PoolExecutor(Executor):
 
         fill()
         while pending:
-            self.in_flight = sorted(pending.values(), key=order.__getitem__)[: self.workers]
+            self._changed(sorted(pending.values(), key=order.__getitem__)[: self.workers])
             done, _ = wait(list(pending), return_when=FIRST_COMPLETED)
             for fut in sorted(done, key=lambda f: order[pending[f]]):
                 pending.pop(fut)
@@ -152,8 +159,11 @@ class PoolExecutor(Executor):
         self.in_flight = []
 
     def close(self, cancel: bool = False) -> None:
+        if self._closed:
+            return
+        self._closed = True
         if cancel:
-            procs = list(getattr(self.pool, "_processes", {}).values())
+            procs = list((getattr(self.pool, "_processes", None) or {}).values())
             self.pool.shutdown(wait=False, cancel_futures=True)
             for p in procs:  # stop units in progress now rather than after they finish
                 try:
@@ -181,6 +191,7 @@ class DaskExecutor(Executor):
         self.threads = threads
         self.ahead = ahead or max(2 * threads, 4)
         self._pending: dict = {}
+        self._closed = False
 
     def describe(self) -> str:
         return f"Dask cluster {self.address} ({self.threads} worker threads)"
@@ -212,9 +223,9 @@ class DaskExecutor(Executor):
         fill()
         for fut in ac:
             _, unit = pending.pop(fut.key)
-            self.in_flight = sorted((u for _, u in pending.values()), key=order.__getitem__)[
-                : self.threads
-            ]
+            self._changed(
+                sorted((u for _, u in pending.values()), key=order.__getitem__)[: self.threads]
+            )
             try:
                 out = fut.result()
             except Exception:
@@ -225,6 +236,9 @@ class DaskExecutor(Executor):
         self.in_flight = []
 
     def close(self, cancel: bool = False) -> None:
+        if self._closed:
+            return
+        self._closed = True
         try:
             if cancel and self._pending:
                 self.client.cancel([f for f, _ in self._pending.values()])

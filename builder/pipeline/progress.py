@@ -67,6 +67,10 @@ class Reporter:
 
     def set_current(self, current: str) -> None:
         self.current = current
+        self.refresh()
+
+    def refresh(self) -> None:
+        """Show a change of the current units (rate-limited like show())."""
         self.show()
 
     def show(self) -> None:
@@ -130,18 +134,21 @@ class LineReporter(Reporter):
 
     def show(self) -> None:
         now = time.monotonic()
-        if now - self.last >= self.every:
+        if self.total_units and now - self.last >= self.every:
             self.last = now
             print(self.line(), file=self.stream, flush=True)
 
     def stop(self) -> None:
-        print(self.line(), file=self.stream, flush=True)
+        if self.total_units:
+            print(self.line(), file=self.stream, flush=True)
 
 
 def make_reporter(mode: str, total_units: int, total_cost: float, console: Console) -> Reporter:
     """mode: 'auto' (bar on a terminal, lines otherwise), 'bar', 'lines', 'none'."""
     if mode == "auto":
         mode = "bar" if console.is_terminal else "lines"
+    if total_units == 0:
+        mode = "none"
     if mode == "bar":
         return RichReporter(total_units, total_cost, console)
     if mode == "lines":

@@ -20,12 +20,13 @@ A database records the bounds it is built with (meta.params). A job with other
 bounds is refused (``BadInput``, exit code 2, nothing written) unless
 ``extend=True``; extending never lowers a bound.
 
-Time estimates (``--dry-run``, the ETA) use the model t(N, k) = A·x^B with
-x = (k − 1)·ψ(N) (≈ the number of Manin symbols): A and B are fitted by least
-squares on log t over the units already stored (``spaces.seconds``; those with
-the job's bounds if there are at least ``MIN_FIT`` of them, else all), and
-otherwise are ``DEFAULT_MODEL``, measured on this project's 2-core reference
-machine with the default bounds (benchmarks/README.md).
+Time estimates (``--dry-run``, the ETA) use the model t(N, k) = A_k·x^B_k with
+x = (k − 1)·ψ(N) (≈ the number of Manin symbols), one (A_k, B_k) per weight,
+fitted by least squares on log t over the units already stored
+(``spaces.seconds``; units stored with another trace_bound are rescaled by
+(trace_bound ratio)^e_k, ``TRACE_EXP``). With no measured units, ``DEFAULT_MODEL``
+(measured on the quickstart job on this project's 2-core reference machine,
+benchmarks/README.md) is used.
 """
 
 from __future__ import annotations
@@ -52,8 +53,17 @@ log = logging.getLogger("nfb")
 
 LOG_NAME = "nfb.log"
 MIN_FIT = 8
-# t ≈ A · ((k−1)·ψ(N))^B seconds, default bounds, one core of the reference machine
-DEFAULT_MODEL = (2.0e-4, 1.3)
+# t ≈ A_k · ((k−1)·ψ(N))^B_k seconds at trace_bound 100, one core of the reference
+# machine (benchmarks/README.md): weight 2 from the newform benchmark at N = 1000, 5000,
+# 10000 (rescaled from trace_bound 1000), which also matches the quickstart's N ≤ 100;
+# weight 4 from the quickstart run (N ≤ 100 only). Higher weights use weight 4's.
+DEFAULT_MODEL = {2: (3.5e-7, 1.96), 4: (4.6e-4, 1.26)}
+# t ∝ trace_bound^e_k, measured between trace_bound 100 and 1000 (levels ≤ 1000)
+TRACE_EXP = {2: 0.5, 4: 1.5}
+
+
+def trace_exp(k: int) -> float:
+    return TRACE_EXP.get(k, TRACE_EXP[4])
 
 
 # ----------------------------------------------------------------------------- small math
@@ -121,34 +131,64 @@ def code_version() -> str:
 
 @dataclass
 class Model:
-    A: float
-    B: float
+    """t(N, k) ≈ A_k · x^B_k seconds, x = (k − 1)·ψ(N); ``fits[k] = (A_k, B_k)``."""
+
+    fits: dict[int, tuple[float, float]]
+    fallback: tuple[float, float]
     source: str
+    trace_bound: int | None = None  # default model: rescale from trace_bound 100
 
     def predict(self, unit: Unit) -> float:
-        return self.A * cost_feature(unit) ** self.B
+        A, B = self.fits.get(unit[1], self.fallback)
+        scale = 1.0
+        if self.trace_bound is not None:
+            scale = (self.trace_bound / 100) ** trace_exp(unit[1])
+        return scale * A * cost_feature(unit) ** B
+
+
+def _least_squares(pts: list[tuple[float, float]]) -> tuple[float, float] | None:
+    if len(pts) < MIN_FIT:
+        return None
+    xs = [x for x, _ in pts]
+    if max(xs) - min(xs) < 0.5:
+        return None
+    n = len(pts)
+    mx, my = sum(xs) / n, sum(y for _, y in pts) / n
+    sxx = sum((x - mx) ** 2 for x in xs)
+    B = sum((x - mx) * (y - my) for x, y in pts) / sxx
+    B = min(max(B, 0.3), 4.0)
+    return math.exp(my - B * mx), B
 
 
 def fit_model(states: dict, params: Params) -> Model:
-    """Least squares of log t on log x over the stored units (see the module doc)."""
+    """Least squares of log t on log x over the stored units (see the module doc).
+
+    Units stored with another trace_bound count with their time scaled by
+    (trace_bound / theirs)^e_k (``TRACE_EXP``); a weight with fewer than MIN_FIT measured
+    units uses the fit over all weights, and no measurements the default model.
+    """
     from builder.storage.models import STATUS_DONE
 
-    want = asdict(params)
-    done = [(u, s) for u, s in states.items() if s.status == STATUS_DONE and s.seconds > 0]
-    same = [(u, s) for u, s in done if s.params == want]
-    for pts, what in ((same, "units stored with these bounds"), (done, "all stored units")):
-        xs = [math.log(cost_feature(u)) for u, _ in pts if cost_feature(u) > 0]
-        ys = [math.log(s.seconds) for u, s in pts if cost_feature(u) > 0]
-        if len(xs) >= MIN_FIT and max(xs) - min(xs) > 0.5:
-            n = len(xs)
-            mx, my = sum(xs) / n, sum(ys) / n
-            sxx = sum((x - mx) ** 2 for x in xs)
-            B = sum((x - mx) * (y - my) for x, y in zip(xs, ys, strict=True)) / sxx
-            B = min(max(B, 0.5), 4.0)
-            A = math.exp(my - B * mx)
-            return Model(A, B, f"fitted on {n} {what}")
-    A, B = DEFAULT_MODEL
-    return Model(A, B, "default model (benchmarks/README.md); no measured units yet")
+    pts: dict[int, list[tuple[float, float]]] = {}
+    n = 0
+    for u, st in states.items():
+        if st.status != STATUS_DONE or st.seconds <= 0 or cost_feature(u) <= 0:
+            continue
+        tb = st.params.get("trace_bound", params.trace_bound) or params.trace_bound
+        y = math.log(st.seconds) + trace_exp(u[1]) * math.log(params.trace_bound / tb)
+        pts.setdefault(u[1], []).append((math.log(cost_feature(u)), y))
+        n += 1
+    joint = _least_squares([p for v in pts.values() for p in v])
+    if joint is not None:
+        fits = {k: f for k, v in pts.items() if (f := _least_squares(v)) is not None}
+        return Model(fits, joint, f"fitted on {n} measured units")
+    A, B = DEFAULT_MODEL[4]
+    return Model(
+        dict(DEFAULT_MODEL),
+        (A, B),
+        "default model (benchmarks/README.md); no measured units yet",
+        trace_bound=params.trace_bound,
+    )
 
 
 # ----------------------------------------------------------------------------- planning
@@ -472,6 +512,9 @@ def _run(job, plan, engine, executor, progress, console, export_parquet, t_start
         )
         reporter = make_reporter(progress, len(plan.todo), plan.total_estimate, console)
         reporter.start()
+        executor.on_change = lambda units: reporter.set_current(
+            ", ".join(unit_label(u) for u in units)
+        )
         for out in executor.run(plan.todo, params):
             unit = out.unit
             summary.compute_seconds += out.seconds
@@ -496,8 +539,9 @@ def _run(job, plan, engine, executor, progress, console, export_parquet, t_start
                 summary.failed.append(unit)
                 log.error("unit %s FAILED:\n%s", unit_label(unit), error)
                 console.print(f"[red]unit {unit_label(unit)} failed[/red] (traceback in the log)")
-            current = ", ".join(unit_label(u) for u in executor.in_flight)
-            reporter.advance(plan.estimates.get(unit, 0.0), current)
+            reporter.advance(
+                plan.estimates.get(unit, 0.0), ", ".join(unit_label(u) for u in executor.in_flight)
+            )
         reporter.stop()
         reporter = None
         executor.close()

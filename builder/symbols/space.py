@@ -9,7 +9,8 @@ Public API (pure; no I/O):
     space.fricke()                 # W_N
     space.hecke_on_symbol(n, x)    # fast path: T_n of one Manin symbol
     space.modular_symbol(P, a, b)  # P(X, Y){a, b} in the free basis
-    space.degeneracy(M, t)         # level N → level M, z ↦ t z
+    space.degeneracy_rows(T, t)    # level N → level M = T.N (β_t: z ↦ t z)
+    space.raising_rows(T, t)       # level M = T.N → level N (α_t, f ↦ f(tz))
 
 Matrices act on row vectors (v ↦ v·A), rows being the images of the basis.
 References: [St] ch. 8 (Manin symbols, boundary, Merel's formula, Atkin–Lehner,
@@ -27,8 +28,9 @@ import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
 from builder.symbols.cusps import boundary_classes
-from builder.symbols.heilbronn import hecke_matrices, merel
+from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import ManinPresentation, poly_action
+from builder.symbols.p1 import p1
 
 Vec = dict  # sparse vector {position: int | Fraction}
 
@@ -76,6 +78,24 @@ def convergents(u: int, v: int) -> list[tuple[int, int]]:
         out.append((q * p1 + p0, q * q1 + q0))
         u, v = v, r
     return out
+
+
+def _per_instance(method):
+    """Cache a method's results on the instance (typed keys), so that a space's
+    caches die with it (a module-level lru_cache on methods would keep every
+    space alive)."""
+    name = method.__name__
+
+    def wrapper(self, *args):
+        cache = self.__dict__.setdefault("_method_cache", {})
+        key = (name,) + tuple((type(a), a) for a in args)
+        if key not in cache:
+            cache[key] = method(self, *args)
+        return cache[key]
+
+    wrapper.__name__ = name
+    wrapper.__doc__ = method.__doc__
+    return wrapper
 
 
 class SymbolSpace:
@@ -242,10 +262,16 @@ class SymbolSpace:
     def _coordinate_matrix(self) -> tuple[flint.fmpz_mat, int]:
         return self._coords_int
 
-    @lru_cache(maxsize=64, typed=True)  # typed: 2.0 must not hit the entry of 2
     def hecke_matrix(self, n: int) -> flint.fmpq_mat:
-        """Exact matrix of T_n on the cuspidal subspace (rows = images of the basis)."""
+        """Exact matrix of T_n on the cuspidal subspace (rows = images of the basis).
+
+        A fresh copy each call: callers may modify it.
+        """
         n = check_index(n)
+        return flint.fmpq_mat(self._hecke_matrix(n))
+
+    @_per_instance  # typed keys: 2.0 must not hit the entry of 2
+    def _hecke_matrix(self, n: int) -> flint.fmpq_mat:
         return self.restrict(self.hecke_rows(n))
 
     def restrict(self, T) -> flint.fmpq_mat:
@@ -301,12 +327,12 @@ class SymbolSpace:
         # [[Q x, 1], [N z, Q]] has det Q² x − N z = Q (Q x − R z) = Q
         return (Q * x, 1, N * z, Q)
 
-    @lru_cache(maxsize=16)
+    @_per_instance
     def atkin_lehner_full(self, Q: int) -> list[Vec]:
         """Rows of W_Q on the whole symbol space, normalised so that W_Q² = 1.
 
         W(P{α, β}) = (P|adj W){Wα, Wβ}; then W² = Q^(k−2), and we divide by
-        Q^((k−2)/2) ([AL], [St] §8.?).
+        Q^((k−2)/2) ([AL]; [St] ch. 8).
         """
         A, B, C, D = self.atkin_lehner_matrix_for(Q)
         adj = (D, -B, -C, A)
@@ -328,12 +354,12 @@ class SymbolSpace:
             rows.append({t: v * scale for t, v in vec.items()} if scale != 1 else vec)
         return rows
 
-    @lru_cache(maxsize=16)
+    @_per_instance
     def atkin_lehner_full_matrix(self, Q: int) -> flint.fmpq_mat:
         """W_Q on the whole symbol space as an exact matrix (cached)."""
         return rows_to_fmpq_mat(self.atkin_lehner_full(Q), self.dim)
 
-    @lru_cache(maxsize=16)
+    @_per_instance
     def hecke_rows(self, n: int) -> list[Vec]:
         """Sparse rows of T_n on the whole space (free basis), cached."""
         if self.w == 0:
@@ -349,12 +375,12 @@ class SymbolSpace:
             rows.append(row)
         return rows
 
-    @lru_cache(maxsize=16)
+    @_per_instance
     def hecke_full_cached(self, n: int) -> flint.fmpq_mat:
         """hecke_full(n), cached."""
         return self.hecke_full(n)
 
-    @lru_cache(maxsize=4096)
+    @_per_instance
     def heilbronn_targets(self, n: int, x: int) -> tuple:
         """For T_n of Manin symbol x: (valid h indices, target P¹ indices), cached."""
         i, j = divmod(x, self.psi)
@@ -375,7 +401,7 @@ class SymbolSpace:
         return sorted(p**e for p, e in factor(self.N))
 
     # -- degeneracy maps ---------------------------------------------------------------
-    def degeneracy_rows(self, target: "SymbolSpace", t: int) -> list[Vec]:
+    def degeneracy_rows(self, target: SymbolSpace, t: int) -> list[Vec]:
         """Rows of the degeneracy map to level M = target.N induced by z ↦ t z.
 
         Requires t·M | N.  x = P{α, β} ↦ (P|[[1,0],[0,t]]){tα, tβ} at level M
@@ -399,6 +425,51 @@ class SymbolSpace:
             beta = _reduce((t * a, c))
             rows.append(target.modular_symbol(p2, alpha, beta))
         return rows
+
+
+    def raising_matrix(self, source: SymbolSpace, t: int = 1) -> flint.fmpq_mat:
+        r"""α_t: whole symbol space of level M = source.N → level N (rows = images).
+
+        α_1 is the transfer x ↦ Σ_{γ ∈ Γ0(N)\Γ0(M)} γx: on Manin symbols
+        [P, (c:d)]_M ↦ Σ [P, (c':d')]_N over the points of P¹(Z/NZ) above (c:d)
+        (common practice; [St] §8.6).  For t > 1, f ↦ f(tz) is W_{tM}∘α_1∘W_M
+        up to a scalar, since W_M^{-1}W_{tM} = diag(t, 1) (up to scalars), then α_1
+        up to level N.  Needs t·M | N; same weight and sign.
+        """
+        M = source.N
+        if source.k != self.k or source.sign != self.sign:
+            raise ValueError("raising map needs the same weight and sign")
+        if t < 1 or self.N % (t * M):
+            raise ValueError(f"raising map needs t·M | N, got t={t}, M={M}, N={self.N}")
+        if t == 1:
+            return self._transfer_from(source)
+        mid = cuspidal_space(t * M, self.k, self.sign)
+        R = source.atkin_lehner_full_matrix(M) * mid._transfer_from(source)
+        R = R * mid.atkin_lehner_full_matrix(t * M)
+        return R * self._transfer_from(mid) if mid.N != self.N else R
+
+    def _transfer_from(self, source: SymbolSpace) -> flint.fmpq_mat:
+        if source.N == self.N:
+            return identity_fmpq(self.dim)
+        red = source.P1.index(self.P1.c, self.P1.d).tolist()
+        fibres: dict[int, list[int]] = {}
+        for jN, jM in enumerate(red):
+            fibres.setdefault(jM, []).append(jN)
+        rows = []
+        for x in source.pres.free:
+            i, jM = divmod(x, source.psi)
+            acc: Vec = {}
+            for jN in fibres.get(jM, []):
+                _add_into(acc, self.pres.coords(i * self.psi + jN))
+            rows.append(acc)
+        return rows_to_fmpq_mat(rows, self.dim)
+
+
+def identity_fmpq(n: int) -> flint.fmpq_mat:
+    out = flint.fmpq_mat(n, n)
+    for i in range(n):
+        out[i, i] = 1
+    return out
 
 
 def _complete(c: int, d: int) -> tuple[int, int]:
@@ -474,6 +545,12 @@ def _pivots(E: flint.fmpq_mat) -> list[int]:
             c += 1
         out.append(c)
     return out
+
+
+def clear_caches() -> None:
+    """Forget every cached space (the batch builder calls this between units)."""
+    cuspidal_space.cache_clear()
+    p1.cache_clear()
 
 
 @lru_cache(maxsize=32, typed=True)  # typed: 11.0 or True must not hit a cached int
