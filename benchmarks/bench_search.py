@@ -112,7 +112,9 @@ def synthesise(out: Path, real, seed: int = 20261201) -> dict:
         rest = d - rational
         if rest:
             m = min(rest, int(rng.integers(1, 4)))
-            cuts = sorted(rng.choice(np.arange(1, rest), size=m - 1, replace=False)) if m > 1 else []
+            cuts = (
+                sorted(rng.choice(np.arange(1, rest), size=m - 1, replace=False)) if m > 1 else []
+            )
             bounds = [0, *cuts, rest]
             dims += [int(b - a) for a, b in zip(bounds, bounds[1:], strict=False)]
         dims.sort()
@@ -193,7 +195,11 @@ def time_queries(table: Path, repeat: int) -> list[dict]:
             n = None
             for _ in range(repeat):
                 t0 = time.perf_counter()
-                src = open_source(table) if kind == "sqlite" else open_source(parquet=table / "parquet")
+                src = (
+                    open_source(table)
+                    if kind == "sqlite"
+                    else open_source(parquet=table / "parquet")
+                )
                 with src:
                     df = find(src, f)
                 ts.append(time.perf_counter() - t0)
@@ -233,15 +239,19 @@ def main() -> None:
         cli = cli_time(table)
     import os
 
-    print(f"Measured {time.strftime('%Y-%m-%d')} on {platform.node()} ({os.cpu_count()} cores, "
-          f"{platform.processor() or platform.machine()}), Python {platform.python_version()}; "
-          f"load average {os.getloadavg()[0]:.2f}. Command: `python benchmarks/bench_search.py`.")  # fmt: skip
+    cpu = platform.processor() or platform.machine()
+    print(
+        f"Measured {time.strftime('%Y-%m-%d')} on {platform.node()} ({os.cpu_count()} cores, "
+        f"{cpu}), Python {platform.python_version()}; load average "
+        f"{os.getloadavg()[0]:.2f}. Command: `python benchmarks/bench_search.py`."
+    )
     if info:
         print()
         print(
-            f"SYNTHETIC table (timing only): weight 2, levels 1–{MAX_LEVEL}, {info['orbits']} orbits, "
-            f"{info['eigenvalues']} exact eigenvalues, trace_bound {TRACE_BOUND}; SQLite "
-            f"{info['sqlite_mb']:.0f} MB, Parquet {info['parquet_mb']:.0f} MB (built in {synth:.0f} s)."
+            f"SYNTHETIC table (timing only): weight 2, levels 1–{MAX_LEVEL}, "
+            f"{info['orbits']} orbits, {info['eigenvalues']} exact eigenvalues, trace_bound "
+            f"{TRACE_BOUND}; SQLite {info['sqlite_mb']:.0f} MB, Parquet "
+            f"{info['parquet_mb']:.0f} MB (built in {synth:.0f} s)."
         )
     print()
     print("| query | rows | SQLite s | Parquet s |")

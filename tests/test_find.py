@@ -12,6 +12,7 @@ import io
 import json
 import re
 from fractions import Fraction
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -62,7 +63,10 @@ CASES = {
         dict(weight=4, dim=(2, 3)),
         lambda r, ev: r.weight == 4 and 2 <= r.dim <= 3,
     ),
-    "rational weight 2": (dict(weight=2, rational=True), lambda r, ev: r.weight == 2 and r.dim == 1),
+    "rational weight 2": (
+        dict(weight=2, rational=True),
+        lambda r, ev: r.weight == 2 and r.dim == 1,
+    ),
     "irrational": (dict(rational=False), lambda r, ev: r.dim > 1),
     "fricke +1": (dict(fricke=1), lambda r, ev: r.fricke_sign == 1),
     "root number -1 weight 2": (
@@ -94,9 +98,11 @@ CASES = {
     ),
     "a_5 in [-1.5, 1.5] for all embeddings, dim ≥ 2": (
         dict(ap={5: (-1.5, 1.5)}, dim=(2, None)),
-        lambda r, ev: r.dim >= 2
-        and (c := _ap_value(ev, r.label, 5)) is not None
-        and all(-1.5 <= v <= 1.5 for v in _embeddings(r.field_poly, c)),
+        lambda r, ev: (
+            r.dim >= 2
+            and (c := _ap_value(ev, r.label, 5)) is not None
+            and all(-1.5 <= v <= 1.5 for v in _embeddings(r.field_poly, c))
+        ),
     ),
     "nothing": (dict(level=(1, 10), weight=2), lambda r, ev: r.level <= 10 and r.weight == 2),
     "combined": (
@@ -172,8 +178,8 @@ def test_duckdb_on_the_export(table, ref):
     with Table(table) as t:
         con = t.duckdb()
         rows = con.execute(
-            "SELECT label FROM newforms WHERE weight = 2 AND dim = 1 AND traces[2] BETWEEN -1 AND 1 "
-            "ORDER BY level, orbit"
+            "SELECT label FROM newforms WHERE weight = 2 AND dim = 1 "
+            "AND traces[2] BETWEEN -1 AND 1 ORDER BY level, orbit"
         ).fetchall()
     mask = (nf.weight == 2) & (nf.dim == 1) & np.array([t[1] in (-1, 0, 1) for t in nf.traces])
     want = nf[mask]
@@ -210,3 +216,37 @@ def test_cli_find_bad_input_exit_2(table, tmp_path):
     assert r.returncode == 2 and "not a prime" in r.stderr
     r = run_nfb("find", "--out", tmp_path / "nothing-here")
     assert r.returncode == 2 and "no nfb table here" in r.stderr
+
+
+# ----------------------------------------------------------------------------- README examples
+
+
+QUICKSTART = Path(__file__).resolve().parents[1] / "output" / "quickstart"
+
+
+def test_readme_examples_on_the_quickstart_output():
+    """The numbers quoted in README "Searching, verifying, reporting" (the quickstart table is
+    built by the README's first set-up command, which .ci/run runs before the tests)."""
+    if not (QUICKSTART / "newforms.sqlite").exists():
+        pytest.skip("no output/quickstart (run `nfb run jobs/quickstart.toml` first)")
+    with Table(QUICKSTART) as t:
+        got = t.newforms(weight=2, al={2: -1, 3: 1}, trace={5: (-2, 2)})
+        assert got["label"].tolist() == ["24w2-1", "36w2-1", "42w2-1", "66w2-2", "90w2-2",
+                                         "96w2-1"]  # fmt: skip
+        nf = t.newforms(level=(1, 100))
+        two = nf[nf.al_primes.map(len) == 2]
+        table = two.groupby(["weight", two.al_signs.map(tuple)]).dim.sum().unstack()
+        assert table.loc[2].tolist() == [2, 64, 49, 12]
+        assert table.loc[4].tolist() == [156, 59, 62, 98]
+        odd = t.newforms(weight=2, rational=True, root_number=-1)
+        assert len(odd) == 17 and set(odd["l_ratio"]) == {"0"}
+        w4 = t.newforms(weight=4, al={2: -1, 3: -1}, trace={5: (-10, 10)})
+        assert w4["label"].tolist() == ["18w4-1", "30w4-2", "42w4-2", "48w4-3", "54w4-3",
+                                        "66w4-3", "72w4-3", "78w4-6", "90w4-4", "96w4-5",
+                                        "96w4-6"]  # fmt: skip
+
+
+@pytest.mark.parametrize("cmd", ["find", "sql", "verify", "report"])
+def test_help(cmd):
+    r = run_nfb(cmd, "--help")
+    assert r.returncode == 0 and "Usage" in r.stdout

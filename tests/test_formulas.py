@@ -72,10 +72,7 @@ def test_cusps_and_index():
         assert F.nu_inf(p) == 2 and F.nu_inf(p * p) == p + 1
     for N in range(1, 90):
         brute = {
-            (c % N, d % N)
-            for c in range(N)
-            for d in range(N)
-            if math.gcd(math.gcd(c, d), N) == 1
+            (c % N, d % N) for c in range(N) for d in range(N) if math.gcd(math.gcd(c, d), N) == 1
         }
         # number of points of P¹(Z/NZ) = pairs up to units
         units = [u for u in range(N) if math.gcd(u, N) == 1] or [0]

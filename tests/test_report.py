@@ -88,10 +88,7 @@ def _expected(out):
         s, f = sp[sp.weight == k], nf[nf.weight == k]
         rational = f[(f.dim == 1) & ~f.is_cm.astype(bool)]
         st = sum(
-            1
-            for r in rational.itertuples()
-            for p in F.primes_up_to(len(r.traces))
-            if r.level % p
+            1 for r in rational.itertuples() for p in F.primes_up_to(len(r.traces)) if r.level % p
         )
         al: dict[str, list[int]] = {}
         for r in f.itertuples():
@@ -133,7 +130,9 @@ def _check_numbers(cells: dict[str, str], want) -> None:
             "fricke_minus_forms", "max_degree", "sato_tate_samples", "units_matching_formulas",
         ):  # fmt: skip
             assert cells[f"w{k}.{key}"].strip() == str(w[key]), (k, key)
-        assert float(cells[f"w{k}.growth_exponent"]) == pytest.approx(w["growth_exponent"], abs=2e-3)
+        assert float(cells[f"w{k}.growth_exponent"]) == pytest.approx(
+            w["growth_exponent"], abs=2e-3
+        )
         for vec, (forms, orbits) in w["al"].items():
             assert int(cells[f"w{k}.al.{vec}.forms"]) == forms, (k, vec)
             assert int(cells[f"w{k}.al.{vec}.orbits"]) == orbits, (k, vec)

@@ -79,7 +79,9 @@ def test_select_matches_pandas(table):
             "SELECT weight, fricke_sign, count(*) AS orbits, sum(dim) AS forms FROM newforms "
             "GROUP BY weight, fricke_sign ORDER BY 1, 2",
         )
-        want = nf.groupby(["weight", "fricke_sign"]).agg(orbits=("dim", "size"), forms=("dim", "sum"))
+        want = nf.groupby(["weight", "fricke_sign"]).agg(
+            orbits=("dim", "size"), forms=("dim", "sum")
+        )
         assert [tuple(r) for r in df.itertuples(index=False)] == [
             (k, s, o, f) for (k, s), (o, f) in want.iterrows()
         ]
@@ -129,7 +131,9 @@ def test_cli_sql_refuses_and_reads(table, tmp_path):
     assert r.stdout.splitlines()[0] == "label,dim"
     _, nf, _ = read_export(t)
     want = nf[nf.level == 37].sort_values("label")
-    assert r.stdout.splitlines()[1:] == [f"{a},{b}" for a, b in zip(want.label, want.dim, strict=True)]
+    assert r.stdout.splitlines()[1:] == [
+        f"{a},{b}" for a, b in zip(want.label, want.dim, strict=True)
+    ]
 
 
 def _need_duckdb():
@@ -180,8 +184,9 @@ def _pg_counts(url: str) -> dict[str, int]:
     try:
         with engine.connect() as conn:
             return {
-                name: conn.execute(select(func.count()).select_from(Base.metadata.tables[name]))
-                .scalar()
+                name: conn.execute(
+                    select(func.count()).select_from(Base.metadata.tables[name])
+                ).scalar()
                 for name in ("meta", "runs", "spaces", "newforms", "eigenvalues")
             }
     finally:
@@ -211,8 +216,10 @@ def test_postgresql_find_sql_and_writes_refused(table, pg_table):
         ]:
             with pytest.raises(Exception) as exc:  # ReadOnlyViolation or a refused SQL error
                 run_sql(pg, stmt)
-            assert "refused" in str(exc.value) or "read-only" in str(exc.value) or "read-write" in (
-                str(exc.value)
+            assert (
+                "refused" in str(exc.value)
+                or "read-only" in str(exc.value)
+                or "read-write" in (str(exc.value))
             ), (stmt, exc.value)
     assert _pg_counts(pg_table) == before
     r = run_nfb("sql", "--db", pg_table, "DELETE FROM newforms")

@@ -101,7 +101,9 @@ class EigenForm:
                 return U
             if mod.bit_length() > 62 * 40:
                 break
-        raise ArithmeticError(f"level {self.N}: could not lift the dual of an orbit of dim {self.d}")
+        raise ArithmeticError(
+            f"level {self.N}: could not lift the dual of an orbit of dim {self.d}"
+        )
 
     def _dual_mod(self, ell: int, primes: list[int], polys: dict) -> tuple:
         S = self.space

@@ -11,8 +11,12 @@ and differences, keep those whose minimal polynomial has degree d = [K:Q].
 Among those polynomials choose: smallest max |coefficient|, then smallest
 sum of |coefficients|, then the coefficient list (constant term first)
 compared lexicographically.  Since x ↦ −x maps generators to generators, both
-signs are always candidates.  The result depends only on O, hence only on
-the form.
+signs are always candidates.  The result is a deterministic function of the
+form: O is spanned by its a_n, written in the power basis of α, the T_q
+eigenvalue of the orbit's (canonical) splitting prime.  Known gap: an LLL
+basis is not unique, so the choice can differ for another presentation of
+the same order (tests/test_fields.py records this as an expected failure);
+a canonical enumeration of short vectors would close it.
 """
 
 from __future__ import annotations
@@ -70,9 +74,17 @@ class NumberField:
         cp = flint.fmpz_poly([int(c) for c in self.charpoly(a).coeffs()])
         return cp.gcd(cp.derivative()).degree() == 0
 
-    def embeddings(self, prec: int = 200) -> list:
-        """The real roots of f (arb), i.e. the real embeddings of K."""
-        return list(self.fz.real_roots()) if self.d > 0 else []
+    def embeddings(self) -> list:
+        """The real embeddings of K: the roots of f as arb balls (K is totally real).
+
+        Raises ArithmeticError if some root is not real.
+        """
+        out = []
+        for r, _mult in self.fz.complex_roots():
+            if not r.imag.contains(0):
+                raise ArithmeticError("field polynomial has a non-real root")
+            out.append(r.real)
+        return sorted(out, key=lambda x: float(x.mid()))
 
 
 def _power_sums(f: flint.fmpz_poly, m: int) -> list[int]:

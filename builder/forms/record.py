@@ -27,6 +27,10 @@ class Params:
     dim_cap: int = 20  # ... for orbits of dimension ≤ dim_cap
 
     def validate(self) -> None:
+        for name in ("trace_bound", "ap_bound", "dim_cap"):
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, int):
+                raise ValueError(f"{name} must be an integer, got {v!r}")
         if self.trace_bound < 1:
             raise ValueError(f"trace_bound must be ≥ 1, got {self.trace_bound}")
         if self.ap_bound < 2:

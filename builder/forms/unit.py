@@ -314,7 +314,7 @@ def _traces_mod_many(eigs: list[EigenForm], B: int, ell: int) -> list[list[int]]
         def mul(x, y, f=f):
             return (x * y) % f
 
-        _fill_multiplicative_mod(a, B, E.N, E.k, mul, one, ell)
+        _fill_multiplicative(a, B, E.N, E.k, mul, one)
         ps = _power_sums_mod(E.orbit.poly, E.d, ell)
         tr = []
         for n in range(1, B + 1):
@@ -322,25 +322,6 @@ def _traces_mod_many(eigs: list[EigenForm], B: int, ell: int) -> list[list[int]]
             tr.append(sum(ci * ps[j] for j, ci in enumerate(c)) % ell)
         out.append(tr)
     return out
-
-
-def _fill_multiplicative_mod(a, B, N, k, mul, one, ell) -> None:
-    for p in primes_up_to(B):
-        pk1 = flint.nmod_poly([pow(p, k - 1, ell)], ell)
-        bad = N % p == 0
-        prev2, prev, q = one, a[p], p
-        while q * p <= B:
-            nxt = mul(a[p], prev) if bad else (mul(a[p], prev) - mul(pk1, prev2))
-            prev2, prev = prev, nxt
-            q *= p
-            a[q] = nxt
-    for n in range(2, B + 1):
-        f = factor(n)
-        if len(f) > 1:
-            val = one
-            for p, e in f:
-                val = mul(val, a[p**e])
-            a[n] = val
 
 
 def _crt(res: list[int], mods: list[int]) -> int:
@@ -458,4 +439,6 @@ def _lvalue(E: EigenForm, root: int) -> tuple[bool | None, str | None]:
     return zero, ratio
 
 
-__all__ = ["compute", "hecke_traces", "all_traces", "exact_an", "cm_discriminant", "kronecker", "is_prime"]
+__all__ = [
+    "compute", "hecke_traces", "all_traces", "exact_an", "cm_discriminant", "kronecker", "is_prime",
+]

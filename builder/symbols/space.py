@@ -27,6 +27,7 @@ import flint
 import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
+from builder.linalg import left_kernel, pivots
 from builder.symbols.cusps import boundary_classes
 from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import ManinPresentation, poly_action
@@ -140,9 +141,9 @@ class SymbolSpace:
         rows, ncls = self._boundary_rows()
         B = rows_to_fmpq_mat(rows, max(ncls, 1))
         # cuspidal = {v : v·B = 0}: rational basis in reduced echelon form
-        K = _left_kernel(B)
+        K = left_kernel(B)
         self.cusp_basis = K
-        self.cusp_pivots = _pivots(K)
+        self.cusp_pivots = pivots(K)
         self.dim_cuspidal = K.nrows()
         self.dim_eisenstein = F - self.dim_cuspidal
 
@@ -287,7 +288,11 @@ class SymbolSpace:
             return flint.fmpq_mat(0, 0)
         if not isinstance(T, list):
             T = [
-                {j: Fraction(int(T[i, j].p), int(T[i, j].q)) for j in range(T.ncols()) if T[i, j] != 0}
+                {
+                    j: Fraction(int(T[i, j].p), int(T[i, j].q))
+                    for j in range(T.ncols())
+                    if T[i, j] != 0
+                }
                 for i in range(T.nrows())
             ]
         piv = self.cusp_pivots
@@ -512,38 +517,6 @@ def _act(poly: list, h: tuple[int, int, int, int], w: int) -> list:
             for m, coef in enumerate(A[i]):
                 if coef:
                     out[m] += pi * coef
-    return out
-
-
-def _left_kernel(B: flint.fmpq_mat) -> flint.fmpq_mat:
-    """Rows spanning {v : v·B = 0}, in reduced row echelon form."""
-    Bt = B.transpose()
-    R, rank = Bt.rref()
-    n = Bt.ncols()
-    piv = []
-    r = 0
-    for c in range(n):
-        if r < rank and R[r, c] != 0:
-            piv.append(c)
-            r += 1
-    free = [c for c in range(n) if c not in set(piv)]
-    K = flint.fmpq_mat(len(free), n)
-    for t, f in enumerate(free):
-        K[t, f] = 1
-        for r, p in enumerate(piv):
-            K[t, p] = -R[r, f]
-    if K.nrows():
-        K, _ = K.rref()
-    return K
-
-
-def _pivots(E: flint.fmpq_mat) -> list[int]:
-    out = []
-    c = 0
-    for r in range(E.nrows()):
-        while E[r, c] == 0:
-            c += 1
-        out.append(c)
     return out
 
 

@@ -160,7 +160,14 @@ def collect(src: Source) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
 
 
 def _plots(spaces: pd.DataFrame, forms: pd.DataFrame, num: dict) -> ReportData:
-    import matplotlib
+    try:
+        import matplotlib
+    except ImportError:
+        from builder.pipeline.errors import BadInput
+
+        raise BadInput(
+            "command line", None, "nfb report needs matplotlib: pip install 'nfb[report]'"
+        ) from None
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
