@@ -54,7 +54,8 @@ class NewformRecord:
     root_number: int  # sign of the functional equation = (−1)^(k/2)·fricke_sign
     is_cm: bool
     cm_disc: int | None  # the CM discriminant (negative) when is_cm
-    lvalue_zero: bool  # whether L(f, 1) = 0 (for k = 2; central value L(f, k/2) = 0 for k > 2)
+    # whether L(f, 1) = 0 (k = 2) / L(f, k/2) = 0 (k > 2); None when the +1 symbols cannot tell
+    lvalue_zero: bool | None
     l_ratio: str | None  # L(f,1)/Ω⁺ as "p/q" for rational orbits of weight 2, else None
     ap: dict[int, list[str]] | None  # p ↦ coordinates of a_p in the power basis
     # of a root of field_poly (length dim, rationals as strings); None if dim > dim_cap
