@@ -193,7 +193,7 @@ def machine() -> dict:
         "python": platform.python_version(),
         "python-flint": getattr(flint, "__version__", "?"),
         "numpy": numpy.__version__,
-        "date": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
+        "date": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%d %H:%M UTC"),
         "load": load,
     }
 

@@ -90,7 +90,8 @@ def main(argv: list[str]) -> None:
         )
         r = json.loads(out.stdout.strip().splitlines()[-1])
         results.append(r)
-        print(f"N={N}: total {r['total']:.2f} s (process CPU {r['cpu_process']:.2f} s), peak {r['peak_mb']:.0f} MB, "
+        print(f"N={N}: total {r['total']:.2f} s (process CPU {r['cpu_process']:.2f} s), "
+              f"peak {r['peak_mb']:.0f} MB, "
               f"dim new {r['dim_new']}, {r['orbits']} orbits")
         for name, sec in r["steps"].items():
             print(f"    {name:38s} {sec:8.2f} s")

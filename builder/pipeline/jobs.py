@@ -37,11 +37,10 @@ from __future__ import annotations
 import difflib
 import os
 import re
+import tomllib
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
-
-import tomllib
 
 from builder.forms.record import Params
 from builder.pipeline.errors import BadInput

@@ -26,7 +26,7 @@ import socket
 import time
 from collections.abc import Callable
 from contextlib import AbstractContextManager, nullcontext
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from sqlalchemy import Engine, delete, insert, update
 from sqlalchemy.exc import DBAPIError, SQLAlchemyError
@@ -53,7 +53,7 @@ def _hook(name: str) -> tuple[int, int, str] | None:
 
 
 def now() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 def describe_storage_error(e: BaseException) -> str:

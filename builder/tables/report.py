@@ -28,7 +28,7 @@ import io
 import json
 import math
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -361,7 +361,7 @@ def render_html(data: ReportData, title: str) -> str:
         f"<p>Source: <code>{html.escape(str(num['source']))}</code>; "
         f"{num['units']} units, {num['orbits']} newform orbits; weights "
         f"{', '.join(map(str, weights))}. Generated "
-        f"{datetime.now(timezone.utc).strftime('%Y-%m-%d %H:%M UTC')} by <code>nfb report</code>."
+        f"{datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')} by <code>nfb report</code>."
         "</p>",
         "<h2>Summary</h2>",
         '<table id="summary"><thead><tr><th class="name">quantity</th>'
