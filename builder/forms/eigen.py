@@ -44,13 +44,6 @@ from builder.symbols.manin import poly_action
 from builder.symbols.space import SymbolSpace
 
 
-def _right_kernel_cols(A: flint.fmpq_mat) -> flint.fmpq_mat:
-    """Columns spanning {u : A·u = 0}."""
-    from builder.linalg import left_kernel
-
-    return left_kernel(A.transpose()).transpose()
-
-
 class EigenForm:
     """The eigen-functional of one orbit and everything derived from it."""
 
@@ -347,17 +340,6 @@ def _reconstruct(acc: list[list[int]], mod: int) -> flint.fmpq_mat | None:
                 return None
             out[i, j] = flint.fmpq(nd[0], nd[1])
     return out
-
-
-def _poly_times_block(g: flint.fmpz_poly, T: flint.fmpq_mat, U: flint.fmpq_mat) -> flint.fmpq_mat:
-    """g(T)·U by Horner's rule on the column block U."""
-    coeffs = list(g.coeffs())
-    R = U * flint.fmpq(0)
-    for c in reversed(coeffs):
-        R = T * R
-        if c != 0:
-            R = R + U * flint.fmpq(c)
-    return R
 
 
 def _solve_cols(U: flint.fmpq_mat, TU: flint.fmpq_mat) -> flint.fmpq_mat:
