@@ -96,6 +96,16 @@ def euler_phi(n: int) -> int:
     return out
 
 
+def moebius(n: int) -> int:
+    """μ(n) (n ≥ 1)."""
+    out = 1
+    for _, e in factor(n):
+        if e > 1:
+            return 0
+        out = -out
+    return out
+
+
 def is_prime(n: int) -> bool:
     if n < 2:
         return False

@@ -143,9 +143,10 @@ SPLIT_CASES = [(N, 2) for N in (11, 23, 37, 60, 63, 64, 90, 96, 100, 125, 143, 1
 def test_orbits_are_hecke_stable_irreducible_pieces(N, k):
     V = new_space(N, k)
     orbits = V.orbits()
-    # the orbits span the new subspace as a direct sum
+    # the orbits span the new part as a direct sum (rows in the old-dual coordinates, which
+    # also hold the new Eisenstein functionals: V.coord_dim ≥ V.dim)
     assert (
-        stacked_rank([orb.basis for orb in orbits], V.dim)
+        stacked_rank([orb.basis for orb in orbits], V.coord_dim)
         == V.dim
         == sum(orb.dim for orb in orbits)
     )
@@ -181,7 +182,7 @@ def test_sign_pieces_partition_the_new_subspace():
         V = new_space(N, k)
         pieces = V.sign_pieces()
         assert sum(B.nrows() for _, B in pieces) == V.dim
-        assert stacked_rank([B for _, B in pieces], V.dim) == V.dim
+        assert stacked_rank([B for _, B in pieces], V.coord_dim) == V.dim
         seen = set()
         for signs, B in pieces:
             assert sorted(signs) == sorted(factorize(N))

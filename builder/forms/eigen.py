@@ -1,351 +1,485 @@
-"""Eigen-data of a newform orbit from one eigen-functional ([St] §9.3, [Cr] §2.9).
+"""Eigen-data of the newform orbits of a space, from eigen-functionals modulo primes.
 
-For an orbit V (Hecke-irreducible piece of the new subspace, coefficient
-field K = Q[x]/(f), f the irreducible charpoly of T_q on V) we build a
-K-valued functional φ on the whole symbol space with φ∘T_n = a_n·φ:
+Setting (builder.forms.newspace): an orbit is the f-part of a piece of the old-dual
+Ann(Old), on which T_q acts by the exact matrix A (column action) with characteristic
+polynomial χ = f·g, f irreducible of degree d, gcd(f, g) = 1.  K = Q[x]/(f), α = x.
 
-1. the dual U ⊂ M* (columns u with u ⟂ the Hecke complement of V) is the
-   common right kernel of W_Q − ε_Q and of g_p(T_p), g_p the charpoly of T_p
-   on V, over primes p ∤ N until its dimension is d = dim V (strong
-   multiplicity one guarantees termination);
-2. T_q acts on U by a d × d matrix A with charpoly f; an eigenvector over K is
-   c = Σ_i b_i(α) A^i v with (f(x) − f(y))/(x − y) = Σ_i b_i(y) x^i;
-3. φ(x) = (coords(x)·U)·c for every Manin symbol x, stored as an integer
-   table Φ (nsym × d, power-basis coordinates, common denominator dropped).
-
-Then a_n = φ(T_n x0)/φ(x0) for a fixed symbol x0 with φ(x0) ≠ 0, where
-T_n x0 is one Heilbronn sum (Merel's formula), shared by all orbits.
-Traces Tr_{K/Q} a_n come from arithmetic in F_ℓ[x]/(f) for primes ℓ whose
-product exceeds twice Deligne's bound d·σ0(n)·n^((k−1)/2), lifted by CRT.
+1. **Eigenvector modulo ℓ** (ℓ < 2^21, f squarefree and coprime to g modulo ℓ).  With
+   χ(x)/(x − α) = Σ_{i<s} h_i(α) x^i and the Krylov matrix K_v = [v, Av, …, A^(s−1)v],
+   c = K_v·(h_i(α))_i satisfies A c = α c: it is Σ_i b_i(α)A^i(g(A)v) with
+   f(x)−f(α) = (x−α)Σ b_i(α)x^i, and g(A)v lies in the f-part ([St] §9.3, adapted).
+   Then φ = X·Y·c (X the old-dual basis, Y the piece's) is a functional on the free
+   generators of M with φ∘T_n = a_n·φ, with values in F_ℓ[x]/(f).
+2. **a_p from one Heilbronn sum**: a_p = φ(T_p v)/φ(v) for a free generator v with φ(v) a
+   unit; T_p v is written once in the free basis by Merel's formula
+   (``SymbolSpace.hecke_images``) and shared by all orbits and all primes ℓ.
+3. **Exactness.**  The f-part modulo ℓ is the reduction of the exact f-part (dimensions
+   agree because f is coprime to g mod ℓ), so φ mod ℓ is, up to a unit, the reduction of
+   an exact ℓ-integral eigen-functional, and a_p mod ℓ is the reduction of a_p ∈ O_K.
+   * Traces: |Tr_{K/Q} a_n| ≤ d·σ0(n)·n^((k−1)/2) (Deligne); CRT over primes whose
+     product exceeds twice that, symmetric residue.
+   * a_p ∈ K: b = a_p·f'(α) lies in Z[α] (Euler: O_K ⊂ f'(α)⁻¹Z[α]) and
+     b = Σ_j σ_j(a_p)·f(x)/(x − α_j), so its coefficients are bounded by
+     d·2p^((k−1)/2)·max_i C(d−1, i)·ρ^(d−1−i), ρ = 2q^((k−1)/2) bounding the roots of f.
+     CRT past twice that bound gives b exactly, and a_p = b/f'(α).
+   Nothing is reconstructed by guessing: every lift is inside a proved bound.
 """
 
 from __future__ import annotations
 
 from functools import cached_property
+from math import comb, isqrt
 
 import flint
 import numpy as np
 
 from builder.arith import factor, is_prime, primes_up_to
-from builder.forms.fields import NumberField
+from builder.forms.fields import NumberField, _power_sums
 from builder.forms.newspace import NewSpace, Orbit
-from builder.linalg import (
-    charpoly_int,
-    crt_pair,
-    lift_primes,
-    nmod_column_echelon,
-    nmod_kernel_cols,
-    poly_at_matrix,
-    rational_reconstruction,
-    restrict,
-)
-from builder.symbols.heilbronn import hecke_matrices
-from builder.symbols.manin import poly_action
-from builder.symbols.space import SymbolSpace
+from builder.linalg_modp import QMat, float_primes, matmul_mod
+
+_V_SCAN = 400  # free generators tried as the base symbol v before giving up on ℓ
+
+
+def ceil_sqrt_times(c: int, m: int) -> int:
+    """An integer ≥ c·√m."""
+    return isqrt(c * c * m) + 1
+
+
+class _ModState:
+    """Everything computed modulo one prime ℓ for all orbits of a space."""
+
+    def __init__(self, system: EigenSystem, ell: int) -> None:
+        self.ell = ell
+        self.system = system
+        new = system.new
+        orbits = system.orbits
+        n = new.space.dim
+        D = sum(o.dim for o in orbits)
+        self.phi = np.zeros((n, D))
+        self.good = [False] * len(orbits)
+        self.fmod: list = [None] * len(orbits)
+        self.v: list = [None] * len(orbits)
+        self.inv_v: list = [None] * len(orbits)
+        Xl = new.X.mod(ell) if new.X.den % ell else None
+        if Xl is None:
+            return
+        groups: dict[int, list[int]] = {}
+        for i, o in enumerate(orbits):
+            groups.setdefault(id(o.piece), []).append(i)
+        for members in groups.values():
+            self._piece(Xl, members)
+        self._choose_base()
+
+    def _piece(self, Xl: np.ndarray, members: list[int]) -> None:
+        ell, sysm = self.ell, self.system
+        o0 = sysm.orbits[members[0]]
+        A = o0.operator()
+        Y = o0.piece.basis
+        if A.den % ell == 0 or Y.den % ell == 0:
+            return
+        Al, Yl = A.mod(ell), Y.mod(ell)
+        s = Al.shape[0]
+        chi = [int(c) % ell for c in (o0.poly * o0.cofactor).coeffs()]
+        Kv = np.empty((s, s))
+        v = np.array([(7 * i * i + 3 * i + 1) % ell for i in range(s)], dtype=np.float64)
+        for t in range(s):
+            Kv[:, t] = v
+            v = matmul_mod(Al, v[:, None], ell)[:, 0]
+        cols, which = [], []
+        for i in members:
+            o = sysm.orbits[i]
+            f = flint.nmod_poly([int(c) for c in o.poly.coeffs()], ell)
+            g = flint.nmod_poly([int(c) for c in o.cofactor.coeffs()], ell)
+            if f.gcd(f.derivative()).degree() != 0 or f.gcd(g).degree() != 0:
+                continue
+            H = _h_matrix(chi, f, o.dim, ell)
+            cols.append(matmul_mod(Kv, H, ell))
+            which.append(i)
+            self.fmod[i] = f
+        if not cols:
+            return
+        C = np.concatenate(cols, axis=1)
+        phi = matmul_mod(Xl, matmul_mod(Yl, C, ell), ell)
+        off = 0
+        for i in which:
+            d = sysm.orbits[i].dim
+            self.phi[:, sysm.offsets[i] : sysm.offsets[i] + d] = phi[:, off : off + d]
+            self.good[i] = True
+            off += d
+
+    def _choose_base(self) -> None:
+        """For every good orbit a free generator v with φ(v) a unit in F_ℓ[x]/(f): the
+        first one that serves all orbits if there is one (one Heilbronn sum per p), else
+        the first one for each orbit."""
+        todo = [i for i, g in enumerate(self.good) if g]
+        n = self.phi.shape[0]
+        first: dict[int, int] = {}
+        for t in range(min(n, _V_SCAN)):
+            units = 0
+            for i in todo:
+                inv = self._unit_inverse(self.phi[t], i)
+                if inv is None:
+                    continue
+                units += 1
+                if i not in first:
+                    first[i] = t
+            if units == len(todo):
+                first = dict.fromkeys(todo, t)
+                break
+            if len(first) == len(todo) and t > 8:
+                break
+        for i in todo:
+            if i not in first:
+                self.good[i] = False  # φ vanishes somewhere on every tried symbol
+                continue
+            self.v[i] = first[i]
+            self.inv_v[i] = self._unit_inverse(self.phi[first[i]], i)
+
+    def _unit_inverse(self, row: np.ndarray, i: int):
+        val = self._poly(row, i)
+        gg, s_, _ = val.xgcd(self.fmod[i])
+        if gg.degree() != 0:
+            return None
+        return s_ * flint.nmod_poly([pow(int(gg.coeffs()[0]), -1, self.ell)], self.ell)
+
+    def _poly(self, row: np.ndarray, i: int) -> flint.nmod_poly:
+        sysm = self.system
+        d = sysm.orbits[i].dim
+        seg = row[sysm.offsets[i] : sysm.offsets[i] + d]
+        return flint.nmod_poly([int(x) for x in seg], self.ell)
+
+    def values(self, rows: QMat) -> np.ndarray:
+        """rows·φ modulo ℓ (rows in free coordinates, exact)."""
+        return matmul_mod(rows.mod(self.ell), self.phi, self.ell)
+
+
+class EigenSystem:
+    """Eigen-data of all orbits of a new space (one per NewSpace; see the module doc)."""
+
+    def __init__(self, new: NewSpace) -> None:
+        self.new = new
+        self.space = new.space
+        self.orbits: list[Orbit] = new.orbits()
+        self.offsets = [0]
+        for o in self.orbits:
+            self.offsets.append(self.offsets[-1] + o.dim)
+        self._states: dict[int, _ModState] = {}
+        self._rows: dict[tuple[int, int], QMat] = {}
+        self._ap_cache: dict[tuple[int, int, int], flint.nmod_poly] = {}
+
+    # -- primes ---------------------------------------------------------------------------
+    def state(self, ell: int) -> _ModState:
+        if ell not in self._states:
+            self._states[ell] = _ModState(self, ell)
+        return self._states[ell]
+
+    def good_primes(self, i: int, limit: int = 60):
+        """Primes ℓ < 2^21 usable for orbit i (endless unless ``limit`` states fail)."""
+        bad = 0
+        for ell in float_primes():
+            st = self.state(ell)
+            if st.good[i]:
+                yield ell
+            else:
+                bad += 1
+                if bad > limit:
+                    raise ArithmeticError(f"level {self.new.N}: no good prime for orbit {i}")
+
+    # -- Heilbronn rows ---------------------------------------------------------------------
+    def _images(self, v: int, ps: list[int]) -> QMat:
+        """Rows T_p(v) in free coordinates for the given p (cached per (v, p))."""
+        missing = [p for p in ps if (v, p) not in self._rows]
+        if missing:
+            x = self.space.pres.free[v]
+            R = self.space.hecke_images(x, missing)
+            for r, p in enumerate(missing):
+                self._rows[(v, p)] = QMat(R.num[r : r + 1], R.den)
+        parts = [self._rows[(v, p)] for p in ps]
+        den = 1
+        for q in parts:
+            den = den * q.den // _gcd(den, q.den)
+        num = np.concatenate([_scale(q.num, den // q.den) for q in parts], axis=0)
+        return QMat(num, den)
+
+    # -- eigenvalues modulo ℓ -----------------------------------------------------------------
+    def aps_mod(self, i: int, ps: list[int], ell: int) -> dict[int, flint.nmod_poly]:
+        """a_p reduced into F_ℓ[x]/(f) for the orbit i and every p in ps."""
+        st = self.state(ell)
+        if not st.good[i]:
+            raise ZeroDivisionError(f"ℓ = {ell} is not a good prime for this orbit")
+        want = [p for p in ps if (i, p, ell) not in self._ap_cache]
+        if want:
+            v = st.v[i]
+            vals = st.values(self._images(v, want))
+            for r, p in enumerate(want):
+                for j in range(len(self.orbits)):
+                    if st.good[j] and st.v[j] == v:
+                        a = (st._poly(vals[r], j) * st.inv_v[j]) % st.fmod[j]
+                        self._ap_cache[(j, p, ell)] = a
+        return {p: self._ap_cache[(i, p, ell)] for p in ps}
+
+    def phi_mod(self, i: int, row: QMat, ell: int) -> flint.nmod_poly:
+        """φ_i(x) mod ℓ for an element x given by its free coordinates (up to a unit)."""
+        st = self.state(ell)
+        return st._poly(st.values(row)[0], i)
+
+    # -- exact eigenvalues ----------------------------------------------------------------------
+    def exact_aps(self, i: int, ps: list[int]) -> dict[int, flint.fmpq_poly]:
+        """Exact a_p ∈ K (power basis of α) for every p in ps (see the module doc)."""
+        o = self.orbits[i]
+        d, k = o.dim, self.new.k
+        f = o.poly
+        fprime = f.derivative()
+        rho = ceil_sqrt_times(2, o.prime ** (k - 1))
+        shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
+        bound = {p: d * ceil_sqrt_times(2, p ** (k - 1)) * shape for p in ps}
+        need = 2 * max(bound.values()) + 1
+        res: list[dict[int, list[int]]] = []
+        mods: list[int] = []
+        prod = 1
+        for ell in self.good_primes(i):
+            aps = self.aps_mod(i, ps, ell)
+            fp = flint.nmod_poly([int(c) for c in fprime.coeffs()], ell)
+            fl = self.state(ell).fmod[i]
+            res.append({p: _coeffs((aps[p] * fp) % fl, d) for p in ps})
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        K = NumberField(f)
+        inv_fp = K.inv(K.elt([int(c) for c in fprime.coeffs()]))
+        out = {}
+        for p in ps:
+            b = []
+            for j in range(d):
+                x = _crt([r[p][j] for r in res], mods)
+                b.append(x - prod if x > prod // 2 else x)
+            out[p] = K.mul(K.elt(b), inv_fp)
+        return out
+
+    # -- traces -----------------------------------------------------------------------------------
+    def traces(self, B: int) -> list[list[int]]:
+        """[Tr_{K/Q} a_n, n = 1..B] for every orbit, exactly (Deligne's bound, CRT)."""
+        k = self.new.k
+        ps = primes_up_to(B)
+        out: list = []
+        for i, o in enumerate(self.orbits):
+            need = 2 * deligne_trace_bound(o.dim, k, B) + 1
+            res, mods, prod = [], [], 1
+            for ell in self.good_primes(i):
+                aps = self.aps_mod(i, ps, ell)
+                res.append(_traces_mod(aps, o, B, k, self.new.N, ell, self.state(ell).fmod[i]))
+                mods.append(ell)
+                prod *= ell
+                if prod > need:
+                    break
+            vals = []
+            for n in range(B):
+                x = _crt([r[n] for r in res], mods)
+                vals.append(x - prod if x > prod // 2 else x)
+            out.append(vals)
+        return out
+
+
+# -- one orbit -------------------------------------------------------------------------------------
 
 
 class EigenForm:
-    """The eigen-functional of one orbit and everything derived from it."""
+    """The eigen-data of one orbit (a view on the space's EigenSystem)."""
 
     def __init__(self, new: NewSpace, orbit: Orbit) -> None:
         self.new = new
-        self.space: SymbolSpace = new.space
+        self.space = new.space
         self.orbit = orbit
         self.N, self.k, self.d = new.N, new.k, orbit.dim
         self.K = NumberField(orbit.poly)
-        self._build()
-
-    # -- construction ---------------------------------------------------------
-    def _op_on_orbit(self, n: int) -> flint.fmpq_mat:
-        return restrict(self.orbit.basis, self.new.hecke(n))
-
-    def _dual(self) -> flint.fmpq_mat:
-        """The dual U (F × d, column echelon) computed modulo primes, lifted, checked.
-
-        Mod ℓ: cut M* down by W_Q − ε_Q, then by g_p(T_p) (g_p = charpoly of T_p
-        on V) for p = the orbit's prime, then further primes ∤ N, until the
-        dimension is d.  Lift by CRT + rational reconstruction; accept only if
-        exactly W_Q U = ε_Q U and T_p U = U A_p with charpoly(A_p) = g_p for every
-        p used.  Then U lies in the exact common kernel, whose dimension is at
-        most the mod-ℓ dimension d, and contains the dual of V: so it is it.
-        """
-        primes = [self.orbit.prime] + [q for q in self.new.good_primes() if q != self.orbit.prime]
-        polys: dict[int, flint.fmpz_poly] = {}
-        acc: list[list[int]] | None = None
-        piv: list[int] | None = None
-        mod = 1
-        used: list[int] = []
-        for ell in lift_primes():
-            try:
-                E, piv_l, used_l = self._dual_mod(ell, primes, polys)
-            except ZeroDivisionError:
-                continue
-            if acc is None or piv_l != piv or used_l != used:
-                acc = [[int(E[i, j]) for j in range(self.d)] for i in range(E.nrows())]
-                piv, used, mod = piv_l, used_l, ell
-            else:
-                acc = [
-                    [crt_pair(acc[i][j], mod, int(E[i, j]), ell) for j in range(self.d)]
-                    for i in range(len(acc))
-                ]
-                mod *= ell
-            U = _reconstruct(acc, mod)
-            if U is not None and self._verify_dual(U, piv, used, polys):
-                return U
-            if mod.bit_length() > 62 * 40:
-                break
-        raise ArithmeticError(
-            f"level {self.N}: could not lift the dual of an orbit of dim {self.d}"
-        )
-
-    def _dual_mod(self, ell: int, primes: list[int], polys: dict) -> tuple:
-        S = self.space
-        U = self._sign_block_mod(ell)
-        used = []
-        cache = self.new.__dict__.setdefault("_block_actions", {})
-        for step, q in enumerate(primes):
-            if U.ncols() == self.d:
-                break
-            if q not in polys:
-                polys[q] = charpoly_int(self._op_on_orbit(q))
-            key = (tuple(sorted(self.orbit.signs.items())), q, ell)
-            if step == 0 and key in cache:
-                B = cache[key]
-            else:
-                B = _block_action(_cached_nmod(S, "T", q, ell), U)
-                if step == 0:
-                    cache[key] = B
-            gB = _nmod_poly_at(polys[q], B, ell)
-            U = U * nmod_kernel_cols(gB)
-            used.append(q)
-        if U.ncols() != self.d:
-            raise ArithmeticError(
-                f"level {self.N}: dual of an orbit of dim {self.d} has dim {U.ncols()} mod {ell}"
-            )
-        if self.orbit.prime not in used:
-            used.insert(0, self.orbit.prime)
-            if self.orbit.prime not in polys:
-                polys[self.orbit.prime] = self.orbit.poly
-        E, piv = nmod_column_echelon(U)
-        return E, piv, used
-
-    def _sign_block_mod(self, ell: int) -> flint.nmod_mat:
-        """∩_Q ker(W_Q − ε_Q) mod ℓ as columns; prefixes shared by all orbits."""
-        cache = self.new.__dict__.setdefault("_sign_blocks_mod", {})
-        S = self.space
-        F = S.dim
-        U = None
-        prefix: tuple = (ell,)
-        for p, e in factor(self.N):
-            prefix = prefix + ((p, self.orbit.signs[p]),)
-            if prefix not in cache:
-                A = _cached_nmod(S, "W", p**e, ell)
-                A = A - _nmod_identity(F, ell) * (self.orbit.signs[p] % ell)
-                cache[prefix] = nmod_kernel_cols(A) if U is None else U * nmod_kernel_cols(A * U)
-            U = cache[prefix]
-        return U if U is not None else _nmod_identity(F, ell)
-
-    def _verify_dual(self, U: flint.fmpq_mat, piv: list[int], used: list[int], polys) -> bool:
-        S = self.space
-        for p, e in factor(self.N):
-            if S.atkin_lehner_full_matrix(p**e) * U != U * self.orbit.signs[p]:
-                return False
-        for q in used:
-            TU = S.hecke_full_cached(q) * U
-            A = flint.fmpq_mat(self.d, self.d)
-            for i, r in enumerate(piv):
-                for j in range(self.d):
-                    A[i, j] = TU[r, j]
-            if U * A != TU or charpoly_int_safe(A) != polys[q]:
-                return False
-        return True
-
-    def _build(self) -> None:
-        S = self.space
-        U = self._dual()
-        q = self.orbit.prime
-        T = S.hecke_full_cached(q)
-        TU = T * U
-        # A with T·U = U·A (U has full column rank); solve via a left inverse
-        A = _solve_cols(U, TU)
-        if charpoly_int(A) != self.orbit.poly:
-            raise ArithmeticError("dual block has the wrong characteristic polynomial")
-        Cm = _eigvec_matrix(self.orbit.poly, A)  # d × d: c_r = Σ_s Cm[r, s] α^s
-        UC = U * Cm  # F × d
-        C, _ = S._coordinate_matrix()
-        Z, _den = UC.numer_denom()
-        Phi = C * Z  # nsym × d integers (common denominator dropped)
-        self._phi = np.array(
-            [[int(Phi[i, j]) for j in range(self.d)] for i in range(Phi.nrows())], dtype=object
-        )
-        nz = np.nonzero(np.any(self._phi != 0, axis=1))[0]
-        if len(nz) == 0:
-            raise ArithmeticError("eigen-functional vanishes on every Manin symbol")
-        self.x0 = int(nz[0])
-        self._phi_x0_inv = self.K.inv(self.K.elt(list(self._phi[self.x0])))
-
-    # -- values -------------------------------------------------------------------
-    def phi(self, x: int) -> flint.fmpq_poly:
-        """φ(Manin symbol x) as an element of K (up to the dropped denominator)."""
-        return self.K.elt(list(self._phi[x]))
-
-    def _heilbronn_sum(self, n: int, table: np.ndarray, mod: int | None = None) -> np.ndarray:
-        """Σ over Merel's X_n of the table rows at x0·h (weight-k coefficients)."""
-        S = self.space
-        i = self.x0 // S.psi
-        ok, targets = S.heilbronn_targets(n, self.x0)
-        if S.w == 0:
-            rows = table[targets]
-            s = rows.sum(axis=0) if len(rows) else np.zeros(table.shape[1], dtype=table.dtype)
-            return s % mod if mod else s
-        a, b, c, d = hecke_matrices(n)
-        idx = dict(zip(ok.tolist(), targets.tolist(), strict=False))
-        acc = np.zeros(table.shape[1], dtype=object)
-        for h in ok.tolist():
-            A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), S.w)[i]
-            t = int(idx[h])
-            for m, coef in enumerate(A):
-                if coef:
-                    acc = acc + table[m * S.psi + t] * coef
-        if mod:
-            acc = np.array([int(x) % mod for x in acc], dtype=object)
-        return acc
+        self.system = eigen_system(new)
+        self.index = next(i for i, o in enumerate(self.system.orbits) if o is orbit)
+        self._exact: dict[int, flint.fmpq_poly] = {}
 
     def ap(self, p: int) -> flint.fmpq_poly:
         """Exact a_p ∈ K (power basis of the T_q-eigenvalue α = x mod f)."""
         if not is_prime(p):
             raise ValueError(f"p must be prime, got {p}")
-        val = self.K.elt([int(x) for x in self._heilbronn_sum(p, self._phi)])
-        return self.K.mul(val, self._phi_x0_inv)
+        if p not in self._exact:
+            self._exact.update(self.system.exact_aps(self.index, [p]))
+        return self._exact[p]
 
-    @cached_property
-    def _mod_tables(self) -> dict:
-        return {}
+    def aps(self, ps: list[int]) -> dict[int, flint.fmpq_poly]:
+        """Exact a_p for several primes at once (shared modular work)."""
+        missing = [p for p in ps if p not in self._exact]
+        if missing:
+            self._exact.update(self.system.exact_aps(self.index, missing))
+        return {p: self._exact[p] for p in ps}
 
     def ap_mod(self, p: int, ell: int) -> flint.nmod_poly:
-        """a_p reduced into F_ℓ[x]/(f) (ℓ must not divide the denominators)."""
-        tab = self._mod_table(ell)
-        val = self._heilbronn_sum(p, tab, ell)
-        v = flint.nmod_poly([int(x) for x in val], ell)
-        return (v * self._x0_inv_mod(ell)) % self._f_mod(ell)
+        """a_p reduced into F_ℓ[x]/(f); ZeroDivisionError if ℓ is not good for the orbit."""
+        return self.system.aps_mod(self.index, [p], ell)[p]
 
-    def _mod_table(self, ell: int) -> np.ndarray:
-        cache = self._mod_tables
-        if ell not in cache:
-            if self.space.w == 0:
-                cache[ell] = np.array(
-                    [[int(x) % ell for x in row] for row in self._phi], dtype=np.int64
-                )
-            else:
-                cache[ell] = np.array(
-                    [[int(x) % ell for x in row] for row in self._phi], dtype=object
-                )
-        return cache[ell]
+    def good_primes(self):
+        return self.system.good_primes(self.index)
 
-    def _f_mod(self, ell: int) -> flint.nmod_poly:
-        return flint.nmod_poly([int(c) for c in self.orbit.poly.coeffs()], ell)
+    def value_nonzero_mod(self, row: QMat, ell: int) -> bool:
+        """Whether φ(x) ≠ 0 modulo ℓ for the element x with free coordinates ``row``."""
+        return not self.system.phi_mod(self.index, row, ell).is_zero()
 
-    def _x0_inv_mod(self, ell: int) -> flint.nmod_poly:
-        key = ("inv", ell)
-        cache = self._mod_tables
-        if key not in cache:
-            c = [int(x) % ell for x in self._phi[self.x0]]
-            v = flint.nmod_poly(c, ell)
-            g, s, _ = v.xgcd(self._f_mod(ell))
-            if g.degree() != 0:
-                raise ZeroDivisionError(f"φ(x0) is not invertible modulo {ell}")
-            cache[key] = s * flint.nmod_poly([pow(int(g.coeffs()[0]), -1, ell)], ell)
-        return cache[key]
+    # -- exact functional (tests, L-values) ------------------------------------------------------
+    @cached_property
+    def _exact_dual(self) -> QMat:
+        """X·U: the orbit's exact dual (n × d), U = ker f(T_q) on the piece."""
+        return self.new.X @ self.orbit.dual_columns
 
+    def dual_values(self, row: QMat) -> list[flint.fmpq]:
+        """u_j(x) for the exact dual basis u_1..u_d and x given by free coordinates."""
+        V = row @ self._exact_dual
+        return [flint.fmpq(int(V.num[0, j]), V.den) for j in range(self.d)]
 
-def charpoly_int_safe(A: flint.fmpq_mat):
-    try:
-        return charpoly_int(A)
-    except ArithmeticError:
-        return None
+    @cached_property
+    def _eigvec(self) -> flint.fmpq_mat:
+        """Cm (d × d): c = Cm·(1, α, …) is an eigenvector of T_q on the dual basis."""
+        U = self._exact_dual
+        T = self.space.hecke_dense(self.orbit.prime)
+        TU = T @ U
+        A = _solve_cols(U.to_fmpq_mat(), TU.to_fmpq_mat())
+        return _eigvec_matrix(self.orbit.poly, A)
 
+    def phi(self, x: int) -> flint.fmpq_poly:
+        """φ(Manin symbol x) ∈ K, exact (the eigen-functional normalised by ``_eigvec``)."""
+        vals = self.dual_values(self.space.coords_row(x))
+        Cm = self._eigvec
+        out = self.K.elt([0])
+        for j in range(self.d):
+            coeff = [Cm[j, s] for s in range(self.d)]
+            out = out + self.K.elt(coeff) * vals[j]
+        return out % self.K.f
 
-def rows_to_nmod(rows: list[dict], ncols: int, ell: int) -> flint.nmod_mat:
-    """Sparse rational rows reduced modulo ℓ (raises ZeroDivisionError on a bad ℓ)."""
-    out = flint.nmod_mat(len(rows), ncols, ell)
-    for r, row in enumerate(rows):
-        for c, v in row.items():
-            if isinstance(v, int):
-                out[r, c] = v % ell
-            else:
-                den = v.denominator % ell
-                if den == 0:
-                    raise ZeroDivisionError(f"denominator divisible by {ell}")
-                out[r, c] = v.numerator % ell * pow(den, -1, ell) % ell
-    return out
-
-
-def _cached_nmod(S, kind: str, n: int, ell: int) -> flint.nmod_mat:
-    """T_n ("T") or W_n ("W") on the whole space modulo ℓ, cached on the space."""
-    cache = S.__dict__.setdefault("_nmod_cache", {})
-    key = (kind, n, ell)
-    if key not in cache:
-        rows = S.hecke_rows(n) if kind == "T" else S.atkin_lehner_full(n)
-        cache[key] = rows_to_nmod(rows, S.dim, ell)
-    return cache[key]
+    def rational_values(self) -> list[int]:
+        """For d = 1: the primitive integer functional φ on every Manin symbol (exact)."""
+        if self.d != 1:
+            raise ValueError("rational_values needs a rational orbit")
+        U = self._exact_dual  # n × 1
+        indptr, gen, num, _den = self.space.coord_csr
+        u = U.num[:, 0]
+        big = int(np.max(np.abs(u), initial=0)) * int(np.max(np.abs(num), initial=0))
+        if u.dtype == object or big * int(np.max(np.diff(indptr), initial=1)) >= (1 << 62):
+            u, terms = u.astype(object), num.astype(object) * u.astype(object)[gen]
+        else:
+            terms = num * u[gen]
+        rows = np.repeat(np.arange(len(indptr) - 1), np.diff(indptr))
+        vals = np.zeros(len(indptr) - 1, dtype=terms.dtype)
+        np.add.at(vals, rows, terms)
+        vals = [int(v) for v in vals]
+        g = 0
+        for v in vals:
+            g = _gcd(g, v)
+        return [v // g for v in vals] if g else vals
 
 
-def _nmod_identity(n: int, ell: int) -> flint.nmod_mat:
-    out = flint.nmod_mat(n, n, ell)
-    for i in range(n):
-        out[i, i] = 1
-    return out
+def eigen_system(new: NewSpace) -> EigenSystem:
+    """The (cached on the space) EigenSystem of a NewSpace."""
+    sysm = new.__dict__.get("_eigen_system")
+    if sysm is None:
+        sysm = EigenSystem(new)
+        new.__dict__["_eigen_system"] = sysm
+    return sysm
 
 
-def _block_action(T: flint.nmod_mat, U: flint.nmod_mat) -> flint.nmod_mat:
-    """B with T·U = U·B (U of full column rank, T·U ⊂ span U), over F_ℓ."""
-    E, piv = nmod_column_echelon(U)
-    TE = T * E
-    m = E.ncols()
-    B = flint.nmod_mat(m, m, U.modulus())
-    for i, r in enumerate(piv):
-        for j in range(m):
-            B[i, j] = TE[r, j]
-    if E * B != TE:
-        raise ZeroDivisionError("block not stable modulo ℓ (bad prime)")
-    # express in the basis U: U = E·C with C = U[piv, :]
-    C = flint.nmod_mat(m, m, U.modulus())
-    for i, r in enumerate(piv):
-        for j in range(m):
-            C[i, j] = U[r, j]
-    return C.inv() * B * C
+# -- helpers ---------------------------------------------------------------------------------
 
 
-def _nmod_poly_at(g: flint.fmpz_poly, B: flint.nmod_mat, ell: int) -> flint.nmod_mat:
-    m = B.nrows()
-    R = flint.nmod_mat(m, m, ell)
-    I = _nmod_identity(m, ell)
-    for c in reversed([int(x) for x in g.coeffs()]):
-        R = R * B
-        if c % ell:
-            R = R + I * (c % ell)
-    return R
+def _h_matrix(chi: list[int], f: flint.nmod_poly, d: int, ell: int) -> np.ndarray:
+    """H (s × d): row i = coefficients of h_i(α) mod f, χ(x)/(x − α) = Σ h_i(α) x^i."""
+    s = len(chi) - 1
+    H = np.zeros((s, d))
+    h = flint.nmod_poly([1], ell)
+    x = flint.nmod_poly([0, 1], ell)
+    for i in range(s - 1, -1, -1):
+        c = [int(t) for t in h.coeffs()]
+        H[i, : len(c)] = c
+        h = (h * x + chi[i]) % f
+    return H
 
 
-def _reconstruct(acc: list[list[int]], mod: int) -> flint.fmpq_mat | None:
-    rows, cols = len(acc), len(acc[0]) if acc else 0
-    out = flint.fmpq_mat(rows, cols)
-    for i in range(rows):
-        for j in range(cols):
-            a = acc[i][j]
-            if a == 0:
-                continue
-            nd = rational_reconstruction(a, mod)
-            if nd is None:
-                return None
-            out[i, j] = flint.fmpq(nd[0], nd[1])
+def _coeffs(a: flint.nmod_poly, d: int) -> list[int]:
+    c = [int(x) for x in a.coeffs()]
+    return c + [0] * (d - len(c))
+
+
+def _crt(res: list[int], mods: list[int]) -> int:
+    x, m = 0, 1
+    for r, q in zip(res, mods, strict=True):
+        t = ((r - x) * pow(m, -1, q)) % q
+        x += m * t
+        m *= q
+    return x
+
+
+def _gcd(a: int, b: int) -> int:
+    a, b = abs(int(a)), abs(int(b))
+    while b:
+        a, b = b, a % b
+    return a
+
+
+def _scale(Z: np.ndarray, s: int) -> np.ndarray:
+    if s == 1:
+        return Z
+    return Z.astype(object) * s if Z.dtype == object else Z * s
+
+
+def deligne_trace_bound(d: int, k: int, B: int) -> int:
+    """An integer ≥ max_{n ≤ B} d·σ0(n)·n^((k−1)/2) (Deligne's bound on |Tr a_n|)."""
+    from builder.arith import divisors
+
+    s0 = max(len(divisors(n)) for n in range(1, B + 1))
+    return d * s0 * (isqrt(B ** (k - 1)) + 1)
+
+
+def fill_multiplicative(a: list, B: int, N: int, k: int, mul, one) -> None:
+    """Fill a[n] from a[p]: Hecke recursion at prime powers, then multiplicativity
+    ([DS] Prop. 5.8.5; a_{p^(r+1)} = a_p a_{p^r} − [p ∤ N] p^(k−1) a_{p^(r−1)})."""
+    for p in primes_up_to(B):
+        pk1 = p ** (k - 1)
+        bad = N % p == 0
+        prev2, prev, q = one, a[p], p
+        while q * p <= B:
+            nxt = mul(a[p], prev) if bad else mul(a[p], prev) - pk1 * prev2
+            prev2, prev = prev, nxt
+            q *= p
+            a[q] = nxt
+    for n in range(2, B + 1):
+        f = factor(n)
+        if len(f) > 1:
+            val = one
+            for p, e in f:
+                val = mul(val, a[p**e])
+            a[n] = val
+
+
+def _traces_mod(aps: dict, o: Orbit, B: int, k: int, N: int, ell: int,
+                f: flint.nmod_poly) -> list[int]:
+    one = flint.nmod_poly([1], ell)
+    a: list = [None] * (B + 1)
+    a[1] = one
+    for p, v in aps.items():
+        a[p] = v
+
+    def mul(x, y):
+        return (x * y) % f
+
+    fill_multiplicative(a, B, N, k, mul, one)
+    ps = [x % ell for x in _power_sums(o.poly, o.dim)]
+    out = []
+    for n in range(1, B + 1):
+        c = [int(x) for x in a[n].coeffs()]
+        out.append(sum(ci * ps[j] for j, ci in enumerate(c)) % ell)
     return out
 
 
 def _solve_cols(U: flint.fmpq_mat, TU: flint.fmpq_mat) -> flint.fmpq_mat:
     """A with U·A = TU, for U of full column rank."""
     d = U.ncols()
-    # pick d independent rows of U
     R, rank = U.transpose().rref()
     piv = []
     r = 0
@@ -376,7 +510,6 @@ def _eigvec_matrix(f: flint.fmpz_poly, A: flint.fmpq_mat) -> flint.fmpq_mat:
         for _ in range(d - 1):
             kry.append(A * kry[-1])
         Cm = flint.fmpq_mat(d, d)
-        # b_i(y) = Σ_{j>i} f_j y^(j−1−i)
         for i in range(d):
             for j in range(i + 1, d + 1):
                 s = j - 1 - i
@@ -388,16 +521,5 @@ def _eigvec_matrix(f: flint.fmpz_poly, A: flint.fmpq_mat) -> flint.fmpq_mat:
     raise ArithmeticError("could not build an eigenvector")
 
 
-def trace_primes(bound: int) -> list[int]:
-    """Primes ℓ < 2^31 whose product exceeds 2·bound (largest first)."""
-    out, prod = [], 1
-    ell = (1 << 31) - 1
-    while prod <= 2 * bound:
-        if is_prime(ell):
-            out.append(ell)
-            prod *= ell
-        ell -= 2
-    return out
-
-
-__all__ = ["EigenForm", "trace_primes", "primes_up_to", "poly_at_matrix"]
+__all__ = ["EigenForm", "EigenSystem", "eigen_system", "deligne_trace_bound",
+           "fill_multiplicative", "primes_up_to"]

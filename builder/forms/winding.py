@@ -37,7 +37,7 @@ def l_ratio(E) -> str:
     cls, keys = point_cusp_classes(P)
     sigma = P.index(P.d, -P.c).tolist()
     cls = cls.tolist()
-    phi = [int(row[0]) for row in E._phi]
+    phi = E.rational_values()[: len(P)]  # weight 2: symbol index = point index
     potential: dict[int, int] = {}
     adj: dict[int, list] = {}
     for j in range(len(P)):

@@ -28,6 +28,7 @@ import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
 from builder.linalg import left_kernel, pivots
+from builder.linalg_modp import QMat, _as_int, exact_rref
 from builder.symbols.cusps import boundary_classes
 from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import ManinPresentation, poly_action
@@ -111,9 +112,8 @@ class SymbolSpace:
         self.P1 = self.pres.P1
         self.psi = self.pres.psi
         self.dim = self.pres.dim
-        self._cuspidal()
 
-    # -- cuspidal subspace ------------------------------------------------------
+    # -- cuspidal subspace (computed on first use) ----------------------------------
     def _boundary_rows(self) -> tuple[list[Vec], int]:
         cls, sgn, ncls = boundary_classes(self.P1, self.sign)
         sigma = self.P1.index(self.P1.d, -self.P1.c)
@@ -130,22 +130,45 @@ class SymbolSpace:
             rows.append(row)
         return rows, ncls
 
-    def _cuspidal(self) -> None:
-        F = self.dim
-        if F == 0:
-            self.dim_cuspidal = 0
-            self.dim_eisenstein = 0
-            self.cusp_basis = flint.fmpq_mat(0, 0)
-            self.cusp_pivots: list[int] = []
-            return
+    @cached_property
+    def boundary_rank(self) -> int:
+        """Rank of the boundary map, exactly (linalg_modp.exact_rref, checked)."""
+        if self.dim == 0:
+            return 0
+        rows, ncls = self._boundary_rows()
+        Z = np.zeros((max(ncls, 1), self.dim), dtype=np.int64)
+        for r, row in enumerate(rows):
+            for c, v in row.items():
+                Z[c, r] = int(v)
+        return exact_rref(Z).rank
+
+    @cached_property
+    def dim_cuspidal(self) -> int:
+        """dim of the cuspidal subspace = dim − rank of the boundary map."""
+        return self.dim - self.boundary_rank
+
+    @cached_property
+    def dim_eisenstein(self) -> int:
+        return self.boundary_rank
+
+    @cached_property
+    def _cusp(self) -> tuple[flint.fmpq_mat, list[int]]:
+        if self.dim == 0:
+            return flint.fmpq_mat(0, 0), []
         rows, ncls = self._boundary_rows()
         B = rows_to_fmpq_mat(rows, max(ncls, 1))
         # cuspidal = {v : v·B = 0}: rational basis in reduced echelon form
         K = left_kernel(B)
-        self.cusp_basis = K
-        self.cusp_pivots = pivots(K)
-        self.dim_cuspidal = K.nrows()
-        self.dim_eisenstein = F - self.dim_cuspidal
+        return K, pivots(K)
+
+    @property
+    def cusp_basis(self) -> flint.fmpq_mat:
+        """Rows (rref) spanning the cuspidal subspace in the free basis (exact, cached)."""
+        return self._cusp[0]
+
+    @property
+    def cusp_pivots(self) -> list[int]:
+        return self._cusp[1]
 
     # -- symbols -----------------------------------------------------------------
     def symbol(self, i: int, c: int, d: int) -> Vec:
@@ -195,6 +218,43 @@ class SymbolSpace:
                 mat = (-p1, p0, -q1, q0)
             _add_into(out, self._poly_symbol(poly, mat))
         return out
+
+    def _poly_terms(self, poly: list, g: tuple[int, int, int, int], out: list) -> None:
+        """Append (Manin symbol index, coefficient) pairs of P{g0, g∞} = [P|g, g] to out."""
+        a, b, c, d = g
+        j = self.P1.index_one(c, d)
+        if j < 0:
+            return
+        A = poly_action(a, b, c, d, self.w)
+        for i, pi in enumerate(poly):
+            if not pi:
+                continue
+            for m, coef in enumerate(A[i]):
+                if coef:
+                    out.append((m * self.psi + j, pi * coef))
+
+    def modular_symbol_terms(self, poly: list, alpha: tuple[int, int],
+                             beta: tuple[int, int]) -> list[tuple[int, int]]:
+        """P(X, Y){α, β} as a list of (Manin symbol index, integer coefficient) pairs."""
+        out: list = []
+        self._from_zero_terms(poly, beta, 1, out)
+        self._from_zero_terms(poly, alpha, -1, out)
+        return out
+
+    def _from_zero_terms(self, poly: list, cusp: tuple[int, int], sgn: int, out: list) -> None:
+        u, v = cusp
+        if v < 0:
+            u, v = -u, -v
+        p = poly if sgn == 1 else [-x for x in poly]
+        if v == 0:
+            self._poly_terms(p, (1, 0, 0, 1), out)
+            return
+        g = gcd(u, v)
+        cv = convergents(u // g, v // g)
+        for j in range(1, len(cv)):
+            (p0, q0), (p1, q1) = cv[j - 1], cv[j]
+            mat = (p1, p0, q1, q0) if p1 * q0 - p0 * q1 == 1 else (-p1, p0, -q1, q0)
+            self._poly_terms(p, mat, out)
 
     # -- Hecke operators ---------------------------------------------------------
     def hecke_on_symbol(self, n: int, x: int) -> Vec:
@@ -318,6 +378,122 @@ class SymbolSpace:
                 X[r, c] = self.cusp_basis[r, p]
         return X
 
+    # -- dense exact operators (numpy), used by the new-space pipeline ----------------------
+    @cached_property
+    def coord_csr(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+        """Every Manin symbol's free coordinates in CSR form over one denominator.
+
+        (indptr, gen, num, den): coords(x) = {gen[t]: num[t]/den, indptr[x] ≤ t < indptr[x+1]}.
+        """
+        den = 1
+        for x in range(self.pres.nsym):
+            for v in self.pres.coords(x).values():
+                if isinstance(v, Fraction):
+                    den = den * v.denominator // gcd(den, v.denominator)
+        indptr = np.zeros(self.pres.nsym + 1, dtype=np.int64)
+        gens: list[int] = []
+        nums: list[int] = []
+        for x in range(self.pres.nsym):
+            c = self.pres.coords(x)
+            indptr[x + 1] = indptr[x] + len(c)
+            for t, v in c.items():
+                gens.append(t)
+                nums.append(int(v * den))
+        return indptr, np.array(gens, dtype=np.int64), _as_int(np.array(nums, dtype=object)), den
+
+    def coords_row(self, x: int) -> QMat:
+        """Free coordinates of Manin symbol x as an exact 1 × dim matrix."""
+        indptr, gen, num, den = self.coord_csr
+        row = np.zeros((1, self.dim), dtype=num.dtype)
+        np.add.at(row[0], gen[indptr[x] : indptr[x + 1]], num[indptr[x] : indptr[x + 1]])
+        return QMat(row, den)
+
+    def _accumulate(self, rows: np.ndarray, syms: np.ndarray, coef: np.ndarray,
+                    nrows: int) -> QMat:
+        """Dense (nrows × dim): row rows[t] += coef[t]·coords(syms[t]) for every t."""
+        indptr, gen, num, den = self.coord_csr
+        cnt = indptr[syms + 1] - indptr[syms]
+        rep = np.repeat(np.arange(len(syms)), cnt)
+        start = np.repeat(indptr[syms] - np.cumsum(cnt) + cnt, cnt)
+        pos = start + np.arange(len(rep))
+        flat = rows[rep] * self.dim + gen[pos]
+        big = int(np.max(np.abs(num), initial=0)) * int(np.max(np.abs(coef), initial=0))
+        if big * max(1, len(pos)) < (1 << 53):
+            vals = (num[pos] * coef[rep]).astype(np.float64)
+            out = np.bincount(flat, weights=vals, minlength=nrows * self.dim)
+            return QMat(np.rint(out).astype(np.int64).reshape(nrows, self.dim), den).reduced()
+        acc = np.zeros(nrows * self.dim, dtype=object)
+        np.add.at(acc, flat, num[pos].astype(object) * coef[rep].astype(object))
+        return QMat(_as_int(acc.reshape(nrows, self.dim)), den).reduced()
+
+    def dense(self, rows: list[Vec]) -> QMat:
+        """Sparse rows (free coordinates) as an exact dense matrix."""
+        den = 1
+        for row in rows:
+            for v in row.values():
+                if isinstance(v, Fraction):
+                    den = den * v.denominator // gcd(den, v.denominator)
+        Z = np.zeros((len(rows), self.dim), dtype=object if den > 1 << 20 else np.int64)
+        for r, row in enumerate(rows):
+            for c, v in row.items():
+                Z[r, c] = int(v * den)
+        return QMat(Z, den).reduced()
+
+    @_per_instance
+    def hecke_dense(self, n: int) -> QMat:
+        """T_n on the whole space (dim × dim, rows = images of the free generators).
+
+        Merel's formula [Me] vectorised over the generators: one pass per Heilbronn
+        matrix h (and monomial m), targets looked up in P¹ with numpy.
+        """
+        n = check_index(n)
+        free = np.array(self.pres.free, dtype=np.int64)
+        I, J = np.divmod(free, self.psi)
+        u, v = self.P1.c[J], self.P1.d[J]
+        a, b, c, d = hecke_matrices(n)
+        rows, syms, coefs = [], [], []
+        gens = np.arange(len(free))
+        for h in range(len(a)):
+            ah, bh, ch, dh = int(a[h]), int(b[h]), int(c[h]), int(d[h])
+            t = self.P1.index(u * ah + v * ch, u * bh + v * dh)
+            ok = t >= 0
+            if self.w == 0:
+                rows.append(gens[ok])
+                syms.append(t[ok])
+                coefs.append(np.ones(int(ok.sum()), dtype=np.int64))
+                continue
+            A = np.array(poly_action(ah, bh, ch, dh, self.w), dtype=object)
+            for m in range(self.w + 1):
+                cm = A[I, m]
+                sel = ok & (cm != 0)
+                if np.any(sel):
+                    rows.append(gens[sel])
+                    syms.append(m * self.psi + t[sel])
+                    coefs.append(_as_int(np.array(cm[sel].tolist(), dtype=object)))
+        if not rows:
+            return QMat(np.zeros((self.dim, self.dim), dtype=np.int64), 1)
+        coef = np.concatenate(coefs)
+        return self._accumulate(np.concatenate(rows), np.concatenate(syms),
+                                _as_int(coef) if coef.dtype == object else coef, self.dim)
+
+    def transfer_dense(self, source: SymbolSpace) -> QMat:
+        """α_1 from level M = source.N (M | N): rows = images of source's free generators.
+
+        [P, (c:d)]_M ↦ Σ [P, (c':d')]_N over the points of P¹(Z/NZ) above (c:d)
+        (the transfer to Γ0(N) ⊂ Γ0(M); common practice, [St] §8.6).
+        """
+        if self.N % source.N or source.k != self.k or source.sign != self.sign:
+            raise ValueError("transfer needs M | N, the same weight and sign")
+        red = source.P1.index(self.P1.c, self.P1.d)
+        pos = np.full(source.pres.nsym, -1, dtype=np.int64)
+        pos[np.array(source.pres.free, dtype=np.int64)] = np.arange(source.dim)
+        syms = np.arange(self.pres.nsym, dtype=np.int64)
+        i, j = np.divmod(syms, self.psi)
+        target = pos[i * source.psi + red[j]]
+        ok = target >= 0
+        return self._accumulate(target[ok], syms[ok], np.ones(int(ok.sum()), dtype=np.int64),
+                                source.dim)
+
     # -- Atkin–Lehner ---------------------------------------------------------------
     def atkin_lehner_matrix_for(self, Q: int) -> tuple[int, int, int, int]:
         """W_Q = [[Q x, y], [N z, Q w]] of determinant Q, for Q ∥ N."""
@@ -334,30 +510,74 @@ class SymbolSpace:
 
     @_per_instance
     def atkin_lehner_full(self, Q: int) -> list[Vec]:
-        """Rows of W_Q on the whole symbol space, normalised so that W_Q² = 1.
+        """Rows of W_Q on the whole symbol space (sparse, free basis), W_Q² = 1."""
+        W = self.atkin_lehner_dense(Q)
+        rows = []
+        for r in range(W.shape[0]):
+            nz = np.nonzero(W.num[r])[0].tolist()
+            rows.append({c: _frac(int(W.num[r, c]), W.den) for c in nz})
+        return rows
+
+    def hecke_images(self, x: int, ns: list[int]) -> QMat:
+        """Rows T_n(x) (free coordinates, exact) of one Manin symbol x for every n in ns.
+
+        Merel's formula [Me]: one Heilbronn sum per n, all accumulated at once with numpy.
+        """
+        i, j = divmod(x, self.psi)
+        u, v = int(self.P1.c[j]), int(self.P1.d[j])
+        rows, syms, coefs = [], [], []
+        for r, n in enumerate(ns):
+            a, b, c, d = hecke_matrices(check_index(n))
+            t = self.P1.index(u * a + v * c, u * b + v * d)
+            ok = np.nonzero(t >= 0)[0]
+            if self.w == 0:
+                rows.append(np.full(len(ok), r, dtype=np.int64))
+                syms.append(t[ok])
+                coefs.append(np.ones(len(ok), dtype=np.int64))
+                continue
+            for h in ok.tolist():
+                A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), self.w)[i]
+                for m, cf in enumerate(A):
+                    if cf:
+                        rows.append(np.array([r], dtype=np.int64))
+                        syms.append(np.array([m * self.psi + int(t[h])], dtype=np.int64))
+                        coefs.append(np.array([cf], dtype=object))
+        if not rows:
+            return QMat(np.zeros((len(ns), self.dim), dtype=np.int64), 1)
+        coef = np.concatenate(coefs)
+        return self._accumulate(np.concatenate(rows), np.concatenate(syms),
+                                _as_int(coef) if coef.dtype == object else coef, len(ns))
+
+    @_per_instance
+    def atkin_lehner_dense(self, Q: int) -> QMat:
+        """W_Q on the whole space, normalised so that W_Q² = 1 (rows = images).
 
         W(P{α, β}) = (P|adj W){Wα, Wβ}; then W² = Q^(k−2), and we divide by
-        Q^((k−2)/2) ([AL]; [St] ch. 8).
+        Q^((k−2)/2) ([AL]; [St] ch. 8).  Each generator's image is a short list of Manin
+        symbols (continued fractions, [Ma]); their coordinates are summed with numpy.
         """
         A, B, C, D = self.atkin_lehner_matrix_for(Q)
         adj = (D, -B, -C, A)
-        scale = Fraction(1, Q ** (self.w // 2))
-        rows = []
-        for x in self.pres.free:
+        rows, syms, coefs = [], [], []
+        for f, x in enumerate(self.pres.free):
             i, j = divmod(x, self.psi)
             c, d = int(self.P1.c[j]), int(self.P1.d[j])
             a, b = _complete(c, d)
             # x = g(P{0,∞}) = (P|g^{-1}){g0, g∞},  g = [[a,b],[c,d]]
             poly = [0] * (self.w + 1)
             poly[i] = 1
-            ginv = (d, -b, -c, a)
-            p2 = _act(_act(poly, ginv, self.w), adj, self.w)
+            p2 = _act(_act(poly, (d, -b, -c, a), self.w), adj, self.w)
             # W g maps 0 ↦ (A b + B d)/(C b + D d), ∞ ↦ (A a + B c)/(C a + D c)
-            alpha = (A * b + B * d, C * b + D * d)
-            beta = (A * a + B * c, C * a + D * c)
-            vec = self.modular_symbol(p2, _reduce(alpha), _reduce(beta))
-            rows.append({t: v * scale for t, v in vec.items()} if scale != 1 else vec)
-        return rows
+            alpha = _reduce((A * b + B * d, C * b + D * d))
+            beta = _reduce((A * a + B * c, C * a + D * c))
+            for t, cf in self.modular_symbol_terms(p2, alpha, beta):
+                rows.append(f)
+                syms.append(t)
+                coefs.append(cf)
+        M = self._accumulate(np.array(rows, dtype=np.int64), np.array(syms, dtype=np.int64),
+                             _as_int(np.array(coefs, dtype=object)), self.dim)
+        scale = Q ** (self.w // 2)
+        return QMat(M.num, M.den * scale).reduced() if scale != 1 else M
 
     @_per_instance
     def atkin_lehner_full_matrix(self, Q: int) -> flint.fmpq_mat:
@@ -468,6 +688,11 @@ class SymbolSpace:
                 _add_into(acc, self.pres.coords(i * self.psi + jN))
             rows.append(acc)
         return rows_to_fmpq_mat(rows, self.dim)
+
+
+def _frac(num: int, den: int):
+    f = Fraction(num, den)
+    return f.numerator if f.denominator == 1 else f
 
 
 def identity_fmpq(n: int) -> flint.fmpq_mat:

@@ -1,0 +1,591 @@
+"""Dense linear algebra modulo small primes on float64 BLAS, and exact results from it.
+
+Why: the symbol spaces of level ~10⁴ have dimension ~1500, and the one big elimination of a
+unit (the old-space conditions, ~2n × n) is the cost that decides whether a table of
+weight 2 up to level 10⁴ fits in a night.  Word-size modular arithmetic in FLINT's nmod_mat
+runs at ~1.5 GFlop/s on the reference machine (1500³ product: 2.3 s); numpy's float64
+matrix product runs at ~45 GFlop/s (0.15 s) and is exact for integers below 2^53.  With
+primes ℓ < 2^21 every product of two residues is below 2^42, so a sum of up to 2^11 of them
+is exact: blocked Gauss–Jordan elimination whose block updates are float matrix products is
+exact modular arithmetic at BLAS speed (the idea of FFLAS-FFPACK; common practice).
+
+Exact results (``exact_rref``): the rref over Q of an integer matrix Z is computed modulo
+one or more such primes, lifted by CRT and rational reconstruction (Wang's algorithm,
+vectorised), and **accepted only after an exact check**: every row of Z equals
+Z[:, pivots]·R (so rowspace(Z) ⊂ rowspace(R)), while rank_Q(Z) ≥ rank_ℓ(Z) = rank(R).
+Hence rowspace(Z) = rowspace(R) and R, being in rref, is *the* rref of Z.  A prime where
+the rank drops or the pivots move is simply outvoted (the largest rank, then the
+lexicographically first pivots, is the generic one over Q).
+
+Conventions: integer matrices are numpy int64 arrays (object arrays of Python ints when
+entries may not fit); an exact rational matrix is ``QMat(num, den)`` = num/den.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import gcd, isqrt
+
+import flint
+import numpy as np
+
+from builder.arith import is_prime_large
+
+FLOAT_PRIME_TOP = 1 << 21  # residues < 2^21: products < 2^42, 2^11 of them sum exactly
+_BLOCK = 64  # panel width of the blocked elimination (k·ℓ² < 2^53 needs k ≤ 2^11)
+_F53 = float(1 << 53)
+
+
+_PRIME_LISTS: dict[int, list[int]] = {}
+
+
+def word_primes(top: int = 1 << 31):
+    """Primes below ``top`` in decreasing order (endless generator, cached list)."""
+    cache = _PRIME_LISTS.setdefault(top, [])
+    i = 0
+    while True:
+        if i == len(cache):
+            p = (cache[-1] if cache else top + 1) - 2
+            if p % 2 == 0:
+                p -= 1
+            while not is_prime_large(p):
+                p -= 2
+            cache.append(p)
+        yield cache[i]
+        i += 1
+
+
+def float_primes():
+    """Primes below 2^21 in decreasing order (endless generator)."""
+    return word_primes(FLOAT_PRIME_TOP)
+
+
+# -- residues and products ----------------------------------------------------------------
+
+
+def to_residues(Z: np.ndarray, ell: int) -> np.ndarray:
+    """Integer array → float64 residues in [0, ℓ)."""
+    if Z.dtype == object:
+        return np.array([[int(x) % ell for x in row] for row in Z], dtype=np.float64).reshape(
+            Z.shape
+        )
+    return np.mod(Z, ell).astype(np.float64)
+
+
+def _reduce(X: np.ndarray, ell: int) -> np.ndarray:
+    """In place: X ← X − rint(X/ℓ)·ℓ, a representative in (−ℓ, ℓ) (exact for |X| < 2^52).
+
+    Faster than fmod, whose cost grows with the exponent gap (glibc divides bit by bit);
+    an integer ≡ 0 (mod ℓ) always comes out as exactly 0, so zero tests stay exact.
+    """
+    q = np.rint(X * (1.0 / ell))
+    q *= ell
+    X -= q
+    return X
+
+
+def matmul_mod(A: np.ndarray, B: np.ndarray, ell: int) -> np.ndarray:
+    """A·B mod ℓ for residue matrices with entries in (−2ℓ, 2ℓ) (inner dim split exactly).
+
+    Primes ℓ ≥ 2^21 (outside the float range) go through FLINT's nmod_mat: exact, slower.
+    """
+    if ell >= FLOAT_PRIME_TOP:
+        return _nmod_matmul(A, B, ell)
+    k = A.shape[1]
+    step = max(1, int(_F53 // (4.0 * float(ell) ** 2)))
+    if k <= step:
+        return _reduce(A @ B, ell)
+    out = np.zeros((A.shape[0], B.shape[1]))
+    for s in range(0, k, step):
+        out += _reduce(A[:, s : s + step] @ B[s : s + step], ell)
+        _reduce(out, ell)
+    return out
+
+
+def _nmod_matmul(A: np.ndarray, B: np.ndarray, ell: int) -> np.ndarray:
+    m, k = A.shape
+    n = B.shape[1]
+    if m == 0 or n == 0 or k == 0:
+        return np.zeros((m, n))
+    FA = flint.nmod_mat(m, k, [int(x) % ell for x in A.ravel()], ell)
+    FB = flint.nmod_mat(k, n, [int(x) % ell for x in B.ravel()], ell)
+    P = FA * FB
+    return np.array([int(x) for x in P.entries()], dtype=np.float64).reshape(m, n)
+
+
+def _inv_mod_small(B: np.ndarray, ell: int) -> np.ndarray:
+    """Inverse of a small invertible residue matrix (Gauss–Jordan on [B | I])."""
+    k = B.shape[0]
+    M = np.concatenate([np.mod(B, ell), np.eye(k)], axis=1)
+    for j in range(k):
+        nz = np.nonzero(M[j:, j])[0]
+        if len(nz) == 0:
+            raise ZeroDivisionError("pivot block is singular modulo ℓ")
+        i = j + int(nz[0])
+        if i != j:
+            M[[i, j]] = M[[j, i]]
+        M[j] = _reduce(M[j] * pow(int(M[j, j]) % ell, -1, ell), ell)
+        f = M[:, j].copy()
+        f[j] = 0
+        M -= np.outer(f, M[j])
+        _reduce(M, ell)
+    return M[:, k:]
+
+
+def rref_mod(A: np.ndarray, ell: int, block: int = _BLOCK) -> tuple[np.ndarray, list[int]]:
+    """Reduced row echelon form of a residue matrix modulo a prime ℓ < 2^21.
+
+    Returns (R, pivots): R has one row per pivot (rank rows, residues in [0, ℓ)),
+    R[:, pivots] = identity.  Blocked Gauss–Jordan: the pivots of a panel of ``block``
+    columns are found by unblocked elimination on the panel alone, then the whole matrix is
+    updated with one float matrix product (rows ← rows − A[:, C]·B⁻¹A[S, :] for the panel's
+    pivot block B).  Entries are symmetric residues; the trailing matrix is reduced only
+    when the accumulated updates (each below k·ℓ²/4) could approach 2^52, and each panel
+    is reduced just before it is used.
+    """
+    if ell >= FLOAT_PRIME_TOP:
+        raise ValueError(f"rref_mod needs a prime below 2^21, got {ell}")
+    A = np.array(A, dtype=np.float64, order="F")  # residues, |entries| < ℓ
+    m, n = A.shape
+    avail = np.ones(m, dtype=bool)
+    prows: list[int] = []
+    pcols: list[int] = []
+    growth = 0.0  # bound on |entries| of the trailing matrix
+    limit = float(1 << 52)
+    c = 0
+    while c < n and len(prows) < m:
+        ce = min(n, c + block)
+        _reduce(A[:, c:ce], ell)
+        rows = np.nonzero(avail)[0]
+        P = A[rows, c:ce]
+        live = np.nonzero(np.any(P != 0, axis=1))[0]
+        P = np.asfortranarray(P[live])
+        free = np.ones(len(live), dtype=bool)
+        S: list[int] = []
+        C: list[int] = []
+        for j in range(ce - c):
+            cand = np.nonzero((P[:, j] != 0) & free)[0]
+            if len(cand) == 0:
+                continue
+            i = int(cand[0])
+            free[i] = False
+            S.append(int(rows[live[i]]))
+            C.append(c + j)
+            if j + 1 == ce - c:
+                break
+            inv = pow(int(P[i, j]) % ell, -1, ell)
+            piv_row = _reduce(P[i, j + 1 :] * inv, ell)
+            f = np.where(free, P[:, j], 0.0)
+            Q = P[:, j + 1 :]
+            Q -= np.outer(f, piv_row)
+            _reduce(Q, ell)
+        if S:
+            k = len(S)
+            Binv = _inv_mod_small(A[np.ix_(S, C)], ell)
+            if ce < n and growth + k * (ell / 2.0 + 1) ** 2 + ell > limit:
+                _reduce(A[:, ce:], ell)
+                growth = 0.0
+            top = matmul_mod(Binv, _reduce(A[S, c:], ell), ell)
+            G = np.asfortranarray(A[:, C])
+            U = A[:, c:]
+            U -= G @ np.asfortranarray(top)  # |G·top| ≤ k·ℓ²/4: exact
+            growth += k * (ell / 2.0 + 1) ** 2 + ell
+            U[S] = top
+            avail[S] = False
+            prows.extend(S)
+            pcols.extend(C)
+        c = ce
+    return np.mod(A[prows], ell), pcols
+
+
+# -- rational reconstruction ---------------------------------------------------------------
+
+
+def rational_reconstruct(a: np.ndarray, M: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Vectorised Wang reconstruction: a ≡ n/d (mod M) with |n|, d ≤ sqrt(M/2).
+
+    ``a`` holds residues in [0, M) (int64 when M < 2^62, else object).  Returns
+    (n, d, ok); where ok is False the entry has no such fraction (d = 1, n = 0 there).
+    """
+    bound = isqrt(M // 2)
+    obj = M >= (1 << 62)
+    dt = object if obj else np.int64
+    r0 = np.full(a.shape, M, dtype=dt)
+    r1 = np.array(a, dtype=dt)
+    s0 = np.zeros(a.shape, dtype=dt)
+    s1 = np.ones(a.shape, dtype=dt)
+    while True:
+        act = r1 > bound
+        if not np.any(act):
+            break
+        q = np.where(act, r0 // np.where(r1 == 0, 1, r1), 0)
+        r0, r1 = np.where(act, r1, r0), np.where(act, r0 - q * r1, r1)
+        s0, s1 = np.where(act, s1, s0), np.where(act, s0 - q * s1, s1)
+    neg = s1 < 0
+    n = np.where(neg, -r1, r1)
+    d = np.where(neg, -s1, s1)
+    ok = (d != 0) & (np.abs(d) <= bound)
+    if obj:
+        g = np.array([gcd(int(x), int(y)) for x, y in zip(n.ravel(), d.ravel(), strict=True)],
+                     dtype=object).reshape(n.shape)
+    else:
+        g = np.gcd(n, d)
+    ok &= g == 1
+    return np.where(ok, n, 0), np.where(ok, d, 1), ok
+
+
+def crt_arrays(acc: np.ndarray, M: int, r: np.ndarray, ell: int) -> tuple[np.ndarray, int]:
+    """Combine residues acc (mod M) and r (mod ℓ) into residues mod M·ℓ (object if large)."""
+    inv = pow(M % ell, -1, ell)
+    big = M * ell >= (1 << 62)
+    if big:
+        acc = acc.astype(object)
+        t = ((r.astype(object) - acc) % ell) * inv % ell
+        return acc + t * M, M * ell
+    acc = acc.astype(np.int64)
+    t = np.mod((r.astype(np.int64) - acc) % ell * inv, ell)
+    return acc + t * M, M * ell
+
+
+def common_denominator(d: np.ndarray) -> int:
+    D = 1
+    for x in np.unique(d).tolist():
+        x = int(x)
+        D = D * x // gcd(D, x)
+    return D
+
+
+# -- exact rational matrices ------------------------------------------------------------------
+
+
+@dataclass
+class QMat:
+    """An exact rational matrix num/den (num an int64 or object integer array, den ≥ 1)."""
+
+    num: np.ndarray
+    den: int = 1
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return self.num.shape
+
+    def reduced(self) -> QMat:
+        g = self.den
+        if g == 1:
+            return self
+        if self.num.dtype == object:
+            for x in self.num.ravel():
+                g = gcd(g, int(x))
+                if g == 1:
+                    return self
+        elif self.num.size:
+            g = gcd(g, int(np.gcd.reduce(self.num.ravel())))
+        if g == 1:
+            return self
+        return QMat(self.num // g, self.den // g)
+
+    def mod(self, ell: int) -> np.ndarray:
+        """Residues in [0, ℓ) as float64 (ℓ must not divide den)."""
+        if ell >= FLOAT_PRIME_TOP:
+            return np.asarray(self.mod_int(ell), dtype=np.float64)
+        inv = pow(self.den % ell, -1, ell)
+        R = to_residues(self.num, ell)
+        return R if inv == 1 else np.mod(R * inv, ell)
+
+    def mod_int(self, ell: int) -> np.ndarray:
+        """Residues in [0, ℓ) as int64 or object (any ℓ not dividing den)."""
+        inv = pow(self.den % ell, -1, ell)
+        if self.num.dtype == object or ell >= (1 << 31):
+            R = np.array([int(x) % ell * inv % ell for x in self.num.ravel()], dtype=object)
+            return R.reshape(self.num.shape)
+        return np.mod(np.mod(self.num, ell) * inv, ell)
+
+    def __matmul__(self, other: QMat) -> QMat:
+        return QMat(int_matmul(self.num, other.num), self.den * other.den).reduced()
+
+    def __sub__(self, other: QMat) -> QMat:
+        D = self.den * other.den // gcd(self.den, other.den)
+        a = _scale(self.num, D // self.den)
+        b = _scale(other.num, D // other.den)
+        return QMat(_as_int(a - b), D).reduced()
+
+    def rows(self, idx) -> QMat:
+        return QMat(self.num[idx], self.den)
+
+    def to_fmpq_mat(self) -> flint.fmpq_mat:
+        r, c = self.shape
+        Z = flint.fmpz_mat(r, c, [int(x) for x in self.num.ravel()]) if r and c else (
+            flint.fmpz_mat(r, c))
+        return flint.fmpq_mat(Z) / self.den if self.den != 1 else flint.fmpq_mat(Z)
+
+    @staticmethod
+    def from_fmpq_mat(A: flint.fmpq_mat) -> QMat:
+        Z, den = A.numer_denom()
+        r, c = A.nrows(), A.ncols()
+        vals = [int(x) for x in Z.entries()] if r and c else []
+        return QMat(_as_int(np.array(vals, dtype=object).reshape(r, c)), int(den))
+
+    @staticmethod
+    def identity(n: int) -> QMat:
+        return QMat(np.eye(n, dtype=np.int64), 1)
+
+    def is_zero(self) -> bool:
+        return not np.any(self.num != 0)
+
+
+def _scale(Z: np.ndarray, s: int) -> np.ndarray:
+    if s == 1:
+        return Z
+    if Z.dtype != object and _absmax(Z) * s < (1 << 62):
+        return Z * s
+    return Z.astype(object) * s
+
+
+def _absmax(Z: np.ndarray) -> int:
+    return int(np.max(np.abs(Z))) if Z.size else 0
+
+
+def _as_int(Z: np.ndarray) -> np.ndarray:
+    """int64 when every entry fits comfortably, else object."""
+    if Z.dtype != object:
+        return Z
+    if Z.size == 0:
+        return Z.astype(np.int64)
+    m = max(abs(int(x)) for x in Z.ravel())
+    return Z.astype(np.int64) if m < (1 << 62) else Z
+
+
+def int_matmul(A: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """Exact integer product, through float64 BLAS whenever that is exact.
+
+    For each column the bound max row-abs-sum(A)·max|B| < 2^53 makes the float product
+    exact; otherwise B is cut into 24-bit limbs (exact per limb when A's row sums are below
+    2^29) and recombined in Python integers; else FLINT's fmpz_mat.
+    """
+    if A.shape[1] != B.shape[0]:
+        raise ValueError(f"shape mismatch {A.shape} · {B.shape}")
+    if A.size == 0 or B.size == 0:
+        return np.zeros((A.shape[0], B.shape[1]), dtype=np.int64)
+    ra = _rowabs_max(A)
+    mb = _absmax_any(B)
+    if ra * mb < (1 << 53) and A.dtype != object and B.dtype != object:
+        return np.rint(A.astype(np.float64) @ B.astype(np.float64)).astype(np.int64)
+    if ra < (1 << 29) and A.dtype != object:
+        Af = A.astype(np.float64)
+        Bo = B.astype(object)
+        sign = np.where(Bo < 0, -1, 1)
+        mag = Bo * sign
+        out = np.zeros((A.shape[0], B.shape[1]), dtype=object)
+        shift = 0
+        while np.any(mag != 0):
+            limb = (mag % (1 << 24)).astype(np.int64) * sign.astype(np.int64)
+            part = np.rint(Af @ limb.astype(np.float64)).astype(np.int64).astype(object)
+            out = out + part * (1 << shift)
+            mag = mag >> 24
+            shift += 24
+        return _as_int(out)
+    FA = flint.fmpz_mat(A.shape[0], A.shape[1], [int(x) for x in A.ravel()])
+    FB = flint.fmpz_mat(B.shape[0], B.shape[1], [int(x) for x in B.ravel()])
+    P = FA * FB
+    return _as_int(np.array([int(x) for x in P.entries()], dtype=object).reshape(
+        A.shape[0], B.shape[1]))
+
+
+def _rowabs_max(A: np.ndarray) -> int:
+    if A.dtype == object:
+        return max((sum(abs(int(x)) for x in row) for row in A), default=0)
+    return int(np.max(np.sum(np.abs(A), axis=1))) if A.size else 0
+
+
+def _absmax_any(Z: np.ndarray) -> int:
+    if Z.dtype == object:
+        return max((abs(int(x)) for x in Z.ravel()), default=0)
+    return _absmax(Z)
+
+
+def q_equal(A: QMat, B: QMat) -> bool:
+    """A == B exactly (A.num·B.den == B.num·A.den)."""
+    if A.shape != B.shape:
+        return False
+    a, b = _scale(A.num, B.den), _scale(B.num, A.den)
+    if a.dtype == object or b.dtype == object:
+        return bool(np.all(a.astype(object) == b.astype(object)))
+    return bool(np.array_equal(a, b))
+
+
+# -- exact rref, kernel, image ---------------------------------------------------------------
+
+
+@dataclass
+class Echelon:
+    """The exact rref of an integer matrix: R = num/den (rank × ncols), R[:, piv] = I."""
+
+    num: np.ndarray
+    den: int
+    piv: list[int]
+    ncols: int
+
+    @property
+    def rank(self) -> int:
+        return len(self.piv)
+
+    @property
+    def free(self) -> list[int]:
+        ps = set(self.piv)
+        return [c for c in range(self.ncols) if c not in ps]
+
+    def kernel(self) -> QMat:
+        """Columns spanning {x : Z·x = 0}: X[free, :] = I, X[piv, :] = −R[:, free]."""
+        free = self.free
+        X = np.zeros((self.ncols, len(free)), dtype=self.num.dtype)
+        for j, c in enumerate(free):
+            X[c, j] = self.den
+        if self.piv and free:
+            X[self.piv, :] = -self.num[:, free]
+        return QMat(X, self.den).reduced()
+
+    def rows(self) -> QMat:
+        return QMat(self.num, self.den)
+
+
+def exact_rref(Z: np.ndarray, max_primes: int = 60) -> Echelon:
+    """The rref over Q of the integer matrix Z, by primes below 2^21 and an exact check."""
+    Z = _as_int(np.asarray(Z))
+    m, n = Z.shape
+    if m == 0 or n == 0 or not np.any(Z != 0):
+        return Echelon(np.zeros((0, n), dtype=np.int64), 1, [], n)
+    best: tuple[int, list[int]] | None = None
+    acc = None
+    M = 1
+    used = 0
+    for ell in float_primes():
+        used += 1
+        if used > max_primes:
+            break
+        R, piv = rref_mod(to_residues(Z, ell), ell)
+        key = (len(piv), [-c for c in piv])
+        if best is None or key > (len(best[1]), [-c for c in best[1]]):
+            best = (len(piv), piv)
+            free = [c for c in range(n) if c not in set(piv)]
+            acc, M = R[:, free].astype(np.int64), ell
+        elif piv != best[1]:
+            continue
+        else:
+            free = [c for c in range(n) if c not in set(piv)]
+            acc, M = crt_arrays(acc, M, R[:, free].astype(np.int64), ell)
+        if M < (1 << 40) and used < 3 and acc.size:
+            continue
+        E = _lift_echelon(acc, M, best[1], n)
+        if E is not None and _rowspace_check(Z, E):
+            return E
+    raise ArithmeticError(f"exact rref of a {m}×{n} matrix did not lift with {used} primes")
+
+
+def _lift_echelon(acc: np.ndarray, M: int, piv: list[int], n: int) -> Echelon | None:
+    rank = len(piv)
+    free = [c for c in range(n) if c not in set(piv)]
+    num_f, den_f, ok = rational_reconstruct(acc, M)
+    if not np.all(ok):
+        return None
+    D = common_denominator(den_f) if den_f.size else 1
+    scale = (D // den_f) if den_f.dtype == object else _div_array(D, den_f)
+    Nf = _as_int(np.asarray(num_f, dtype=object) * np.asarray(scale, dtype=object))
+    dt = Nf.dtype if Nf.size else np.int64
+    R = np.zeros((rank, n), dtype=dt if D < (1 << 62) else object)
+    for i, c in enumerate(piv):
+        R[i, c] = D
+    if free:
+        R[:, free] = Nf
+    return Echelon(_as_int(R), D, list(piv), n)
+
+
+def _div_array(D: int, d: np.ndarray) -> np.ndarray:
+    if D < (1 << 62):
+        return D // d
+    return np.array([D // int(x) for x in d.ravel()], dtype=object).reshape(d.shape)
+
+
+def _rowspace_check(Z: np.ndarray, E: Echelon) -> bool:
+    """Z·den == Z[:, piv]·num, exactly (then rowspace Z ⊂ rowspace R)."""
+    free = E.free
+    if not free:
+        return True
+    lhs = _scale(Z[:, free], E.den)
+    rhs = int_matmul(Z[:, E.piv], E.num[:, free]) if E.piv else np.zeros_like(lhs)
+    return bool(np.all(np.asarray(lhs, dtype=object) == np.asarray(rhs, dtype=object))) if (
+        lhs.dtype == object or rhs.dtype == object) else bool(np.array_equal(lhs, rhs))
+
+
+def exact_kernel(Z: np.ndarray) -> QMat:
+    """Columns spanning the right kernel of an integer matrix, exactly (X[free] = I)."""
+    return exact_rref(Z).kernel()
+
+
+def qmat_kernel(A: QMat) -> QMat:
+    """Right kernel of a rational matrix."""
+    return exact_kernel(A.num)
+
+
+def column_space(A: QMat) -> QMat:
+    """Columns spanning the column space of A, in column echelon form (exact)."""
+    E = exact_rref(_transpose(A.num))
+    return QMat(_transpose(E.num), E.den).reduced()
+
+
+def _transpose(Z: np.ndarray) -> np.ndarray:
+    return np.ascontiguousarray(Z.T)
+
+
+# -- characteristic polynomials with an eigenvalue bound ----------------------------------------
+
+
+def charpoly_bounded(A: QMat, root_bound: int) -> flint.fmpz_poly:
+    """charpoly of A ∈ M_s(Q) whose eigenvalues are algebraic integers of absolute value
+    ≤ root_bound: multimodular (FLINT nmod_mat.charpoly) and CRT to the symmetric residue.
+
+    The coefficient of x^(s−j) is bounded by C(s, j)·root_bound^j ≤ (1 + root_bound)^s,
+    so primes whose product exceeds twice that give the exact polynomial.
+    """
+    s = A.shape[0]
+    if s == 0:
+        return flint.fmpz_poly([1])
+    need = 2 * (1 + root_bound) ** s
+    res: list[list[int]] = []
+    mods: list[int] = []
+    prod = 1
+    for ell in word_primes(1 << 62):
+        if A.den % ell == 0:
+            continue
+        Mt = nmod_matrix(A, ell)
+        res.append([int(c) for c in Mt.charpoly().coeffs()])
+        mods.append(ell)
+        prod *= ell
+        if prod > need:
+            break
+    coeffs = []
+    for i in range(s + 1):
+        x = _crt_list([r[i] for r in res], mods)
+        coeffs.append(x - prod if x > prod // 2 else x)
+    return flint.fmpz_poly(coeffs)
+
+
+def nmod_matrix(A: QMat, ell: int) -> flint.nmod_mat:
+    """A modulo ℓ as an nmod_mat (any word-size prime ℓ not dividing den)."""
+    r, c = A.shape
+    if A.num.dtype == object:
+        vals = [int(x) % ell for x in A.num.ravel()]
+    else:
+        vals = np.mod(A.num, ell).ravel().tolist()
+    M = flint.nmod_mat(r, c, vals, ell)
+    if A.den % ell != 1:
+        M = M * pow(A.den % ell, -1, ell)
+    return M
+
+
+def _crt_list(res: list[int], mods: list[int]) -> int:
+    x, m = 0, 1
+    for r, q in zip(res, mods, strict=True):
+        t = ((r - x) * pow(m, -1, q)) % q
+        x += m * t
+        m *= q
+    return x
