@@ -124,6 +124,17 @@ def primes_up_to(B: int) -> list[int]:
     return [i for i in range(B + 1) if sieve[i]]
 
 
+def iter_primes(limit: int):
+    """The primes p ≤ limit in increasing order, sieved lazily in doubling segments."""
+    lo, hi = 2, 1024
+    while lo <= limit:
+        hi = min(hi, limit)
+        for p in primes_up_to(hi):
+            if p >= lo:
+                yield p
+        lo, hi = hi + 1, 2 * hi
+
+
 def next_prime(n: int) -> int:
     """Smallest prime > n."""
     m = n + 1

@@ -263,7 +263,8 @@ def show(
             f"orbit {nf['orbit']}"
         )
         out.print(f"  dimension {nf['dim']}; field polynomial (constant first) {nf['field_poly']}")
-        out.print(f"  field discriminant {nf['field_disc']}")
+        disc = nf["field_disc"] if nf["field_disc"] is not None else "(not kept: dim > dim_cap)"
+        out.print(f"  field discriminant {disc}")
         pairs = zip(nf["al_primes"], nf["al_signs"], strict=True)
         signs = ", ".join(f"W_{p}: {'+' if s > 0 else '-'}1" for p, s in pairs)
         out.print(

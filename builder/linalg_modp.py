@@ -133,15 +133,25 @@ def _inv_mod_small(B: np.ndarray, ell: int) -> np.ndarray:
 
 
 def rref_mod(A: np.ndarray, ell: int, block: int = _BLOCK) -> tuple[np.ndarray, list[int]]:
+    """The rref of a residue matrix modulo a prime ℓ < 2^21: (R, pivot columns)."""
+    R, pcols, _ = rref_mod_rows(A, ell, block)
+    return R, pcols
+
+
+def rref_mod_rows(A: np.ndarray, ell: int, block: int = _BLOCK,
+                  record: list | None = None) -> tuple[np.ndarray, list[int], list[int]]:
     """Reduced row echelon form of a residue matrix modulo a prime ℓ < 2^21.
 
-    Returns (R, pivots): R has one row per pivot (rank rows, residues in [0, ℓ)),
-    R[:, pivots] = identity.  Blocked Gauss–Jordan: the pivots of a panel of ``block``
-    columns are found by unblocked elimination on the panel alone, then the whole matrix is
-    updated with one float matrix product (rows ← rows − A[:, C]·B⁻¹A[S, :] for the panel's
+    Returns (R, pivot columns, pivot rows): R has one row per pivot (rank rows, residues
+    in [0, ℓ)), R[:, pivots] = identity, and A[pivot rows][:, pivot columns] is invertible.
+    Blocked Gauss–Jordan: the pivots of a panel of ``block`` columns are found by
+    unblocked elimination on the panel alone, then the whole matrix is updated with one
+    float matrix product (rows ← rows − A[:, C]·B⁻¹A[S, :] for the panel's
     pivot block B).  Entries are symmetric residues; the trailing matrix is reduced only
     when the accumulated updates (each below k·ℓ²/4) could approach 2^52, and each panel
-    is reduced just before it is used.
+    is reduced just before it is used.  With ``record`` (a list), every panel's
+    (rows S, B⁻¹, multipliers A[:, C]) is appended, so that the same row operations can be
+    replayed on new columns later (``solve_recorded``).
     """
     if ell >= FLOAT_PRIME_TOP:
         raise ValueError(f"rref_mod needs a prime below 2^21, got {ell}")
@@ -187,6 +197,8 @@ def rref_mod(A: np.ndarray, ell: int, block: int = _BLOCK) -> tuple[np.ndarray, 
                 growth = 0.0
             top = matmul_mod(Binv, _reduce(A[S, c:], ell), ell)
             G = np.asfortranarray(A[:, C])
+            if record is not None:
+                record.append((S, Binv, G))
             U = A[:, c:]
             U -= G @ np.asfortranarray(top)  # |G·top| ≤ k·ℓ²/4: exact
             growth += k * (ell / 2.0 + 1) ** 2 + ell
@@ -195,7 +207,25 @@ def rref_mod(A: np.ndarray, ell: int, block: int = _BLOCK) -> tuple[np.ndarray, 
             prows.extend(S)
             pcols.extend(C)
         c = ce
-    return np.mod(A[prows], ell), pcols
+    return np.mod(A[prows], ell), pcols, prows
+
+
+def solve_recorded(record: list, prows: list[int], rhs: np.ndarray, ell: int) -> np.ndarray:
+    """B⁻¹·rhs modulo ℓ for B = A[prows][:, pivots] of a recorded elimination.
+
+    rhs has one row per pivot row (in the order of ``prows``); the recorded Gauss–Jordan
+    steps are applied to it as to an extra column of A[prows] (the row operations on pivot
+    rows only ever involve pivot rows).
+    """
+    pos = {row: i for i, row in enumerate(prows)}
+    r = np.array(rhs, dtype=np.float64)
+    for S, Binv, G in record:
+        idx = [pos[x] for x in S]
+        top = matmul_mod(Binv, _reduce(r[idx], ell), ell)
+        r -= G[prows] @ top
+        _reduce(r, ell)
+        r[idx] = top
+    return np.mod(r, ell)
 
 
 # -- rational reconstruction ---------------------------------------------------------------
@@ -351,7 +381,7 @@ def _as_int(Z: np.ndarray) -> np.ndarray:
         return Z
     if Z.size == 0:
         return Z.astype(np.int64)
-    m = max(abs(int(x)) for x in Z.ravel())
+    m = int(np.max(np.abs(Z)))
     return Z.astype(np.int64) if m < (1 << 62) else Z
 
 
@@ -392,15 +422,15 @@ def int_matmul(A: np.ndarray, B: np.ndarray) -> np.ndarray:
 
 
 def _rowabs_max(A: np.ndarray) -> int:
+    if not A.size:
+        return 0
     if A.dtype == object:
-        return max((sum(abs(int(x)) for x in row) for row in A), default=0)
-    return int(np.max(np.sum(np.abs(A), axis=1))) if A.size else 0
+        return int(np.max(np.sum(np.abs(A), axis=1)))
+    return int(np.max(np.sum(np.abs(A).astype(np.float64), axis=1)))
 
 
 def _absmax_any(Z: np.ndarray) -> int:
-    if Z.dtype == object:
-        return max((abs(int(x)) for x in Z.ravel()), default=0)
-    return _absmax(Z)
+    return int(np.max(np.abs(Z))) if Z.size else 0
 
 
 def q_equal(A: QMat, B: QMat) -> bool:
@@ -448,48 +478,117 @@ class Echelon:
         return QMat(self.num, self.den)
 
 
-def exact_rref(Z: np.ndarray, max_primes: int = 60) -> Echelon:
-    """The rref over Q of the integer matrix Z, by primes below 2^21 and an exact check."""
+def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
+    """The rref over Q of the integer matrix Z: modular elimination, Dixon lifting, and an
+    exact check.
+
+    One elimination modulo ℓ < 2^21 gives the pivot columns, independent pivot rows S and
+    the blocks B = Z[S, piv] (invertible mod ℓ), C = Z[S, free]; then Y = B⁻¹C (= the free
+    part of the rref) is lifted ℓ-adically (Dixon: Y_i = B⁻¹R_i mod ℓ,
+    R_{i+1} = (R_i − B·Y_i)/ℓ, every product an exact float product), reconstructed as
+    rationals, and accepted only if Z·den == Z[:, piv]·R exactly (see the module doc).  A
+    prime that fails (a rank drop, no lift) is replaced by the next one.
+    """
     Z = _as_int(np.asarray(Z))
     m, n = Z.shape
     if m == 0 or n == 0 or not np.any(Z != 0):
         return Echelon(np.zeros((0, n), dtype=np.int64), 1, [], n)
-    best: tuple[int, list[int]] | None = None
-    acc = None
-    M = 1
-    used = 0
-    for ell in float_primes():
-        used += 1
-        if used > max_primes:
+    best = -1
+    for attempt, ell in enumerate(float_primes()):
+        if attempt >= max_primes:
             break
-        R, piv = rref_mod(to_residues(Z, ell), ell)
-        key = (len(piv), [-c for c in piv])
-        if best is None or key > (len(best[1]), [-c for c in best[1]]):
-            best = (len(piv), piv)
-            free = [c for c in range(n) if c not in set(piv)]
-            acc, M = R[:, free].astype(np.int64), ell
-        elif piv != best[1]:
+        W = _compress(Z, attempt)
+        record: list = []
+        R, piv, prows = rref_mod_rows(to_residues(W, ell), ell, record=record)
+        if len(piv) < best:
             continue
+        best = len(piv)
+        free = [c for c in range(n) if c not in set(piv)]
+        if not free:
+            E = Echelon(_identity_rows(piv, n), 1, list(piv), n)
+            if _rowspace_check(Z, E):
+                return E
+            continue
+        E = _dixon(Z, W, piv, prows, free, ell, R[:, free], record)
+        if E is not None:
+            return E
+    raise ArithmeticError(f"exact rref of a {m}×{n} matrix did not lift")
+
+
+def _compress(Z: np.ndarray, seed: int) -> np.ndarray:
+    """Z itself, or G·Z for a random ±1/0 matrix G with n + 8 rows when Z is much taller
+    than wide (same row space for almost every G; checked later on Z itself)."""
+    m, n = Z.shape
+    if m <= 1.25 * n + 8 or Z.dtype == object:
+        return Z
+    rng = np.random.default_rng(1000 + seed)
+    G = rng.integers(-1, 2, size=(n + 8, m)).astype(np.int64)
+    return int_matmul(G, Z)
+
+
+def _identity_rows(piv: list[int], n: int) -> np.ndarray:
+    R = np.zeros((len(piv), n), dtype=np.int64)
+    for i, c in enumerate(piv):
+        R[i, c] = 1
+    return R
+
+
+def _dixon(Z: np.ndarray, W: np.ndarray, piv: list[int], prows: list[int], free: list[int],
+           ell: int, first: np.ndarray, record: list,
+           max_bits: int = 1 << 16) -> Echelon | None:
+    n = Z.shape[1]
+    ZS = W[prows]
+    B, C = ZS[:, piv], ZS[:, free]
+    small = B.dtype != object and C.dtype != object and _rowabs_max(B) * ell < (1 << 52)
+    Bf = B.astype(np.float64) if small else None
+    Rcur = C.astype(np.float64) if small else C.astype(object)
+    half = ell // 2
+    Yi = first.astype(np.int64)
+    digits: list[np.ndarray] = []
+    flat_nz = np.nonzero(np.ravel(first))[0]
+    sample = flat_nz[np.unique(np.linspace(0, max(len(flat_nz) - 1, 0),
+                                           min(64, len(flat_nz))).astype(np.int64))]
+    acc_s = np.zeros(len(sample), dtype=object)
+    M = 1
+    while M.bit_length() < max_bits:
+        if digits:
+            rhs = to_residues(Rcur, ell) if not small else np.mod(Rcur, ell)
+            Yi = solve_recorded(record, prows, rhs, ell).astype(np.int64)
+        Yi = np.where(Yi > half, Yi - ell, Yi)
+        digits.append(Yi)
+        acc_s = acc_s + np.ravel(Yi)[sample].astype(object) * M
+        if small:
+            Rcur = (Rcur - Bf @ Yi.astype(np.float64)) / ell
         else:
-            free = [c for c in range(n) if c not in set(piv)]
-            acc, M = crt_arrays(acc, M, R[:, free].astype(np.int64), ell)
-        if M < (1 << 40) and used < 3 and acc.size:
-            continue
-        E = _lift_echelon(acc, M, best[1], n)
+            Rcur = (Rcur - int_matmul(B, Yi).astype(object)) // ell
+        M *= ell
+        if len(digits) < 2 or _common_denominator_lift(np.mod(acc_s, M)[None, :], M) is None:
+            continue  # the sample does not lift yet: more digits first (cheap test)
+        acc = np.zeros(Yi.shape, dtype=object)
+        for d in reversed(digits):  # Horner: Σ digits[i]·ℓ^i
+            acc = acc * ell + d.astype(object)
+        E = _lift_echelon(_as_int(np.mod(acc, M)) if M < (1 << 62) else np.mod(acc, M), M,
+                          piv, n)
         if E is not None and _rowspace_check(Z, E):
             return E
-    raise ArithmeticError(f"exact rref of a {m}×{n} matrix did not lift with {used} primes")
+    return None
 
 
 def _lift_echelon(acc: np.ndarray, M: int, piv: list[int], n: int) -> Echelon | None:
     rank = len(piv)
     free = [c for c in range(n) if c not in set(piv)]
-    num_f, den_f, ok = rational_reconstruct(acc, M)
-    if not np.all(ok):
-        return None
-    D = common_denominator(den_f) if den_f.size else 1
-    scale = (D // den_f) if den_f.dtype == object else _div_array(D, den_f)
-    Nf = _as_int(np.asarray(num_f, dtype=object) * np.asarray(scale, dtype=object))
+    lifted = _common_denominator_lift(acc, M)
+    if lifted is None:
+        if acc.size > 20000:
+            return None  # more primes first: the full reconstruction is slow on big blocks
+        num_f, den_f, ok = rational_reconstruct(acc, M)
+        if not np.all(ok):
+            return None
+        D = common_denominator(den_f) if den_f.size else 1
+        scale = (D // den_f) if den_f.dtype == object else _div_array(D, den_f)
+        Nf = _as_int(np.asarray(num_f, dtype=object) * np.asarray(scale, dtype=object))
+    else:
+        Nf, D = lifted
     dt = Nf.dtype if Nf.size else np.int64
     R = np.zeros((rank, n), dtype=dt if D < (1 << 62) else object)
     for i, c in enumerate(piv):
@@ -497,6 +596,50 @@ def _lift_echelon(acc: np.ndarray, M: int, piv: list[int], n: int) -> Echelon | 
     if free:
         R[:, free] = Nf
     return Echelon(_as_int(R), D, list(piv), n)
+
+
+def _common_denominator_lift(acc: np.ndarray, M: int, rounds: int = 4):
+    """Candidate (numerators, D) with acc ≡ numerators/D (mod M), all small.
+
+    The entries of an rref share most of their denominator (a pivot minor), so a few
+    reconstructions give D, and one vectorised product D·acc mod M gives every numerator.
+    A candidate is only a candidate: exact_rref checks it exactly.
+    """
+    flat = acc.ravel()
+    nz = np.nonzero(flat)[0]
+    if len(nz) == 0:
+        return np.zeros(acc.shape, dtype=np.int64), 1
+    half = M // 2
+    limit = isqrt(M // 2)
+    D = 1
+    probe = nz[np.unique(np.linspace(0, len(nz) - 1, min(16, len(nz))).astype(np.int64))]
+    for _ in range(rounds):
+        for idx in probe.tolist():
+            a = int(flat[idx]) * D % M
+            r = _rr_one(a, M)
+            if r is None:
+                return None
+            D *= r[1]
+        if D > limit:
+            return None
+        y = _mulmod(acc, D, M)
+        y = np.where(y > half, y - M, y)
+        big = np.abs(y) > limit
+        if not np.any(big):
+            return _as_int(y), D
+        probe = np.nonzero(big.ravel())[0][:16]
+    return None
+
+
+def _mulmod(A: np.ndarray, D: int, M: int) -> np.ndarray:
+    if A.dtype != object and M < (1 << 31) and D < (1 << 31):
+        return (A * D) % M
+    return (A.astype(object) * D) % M
+
+
+def _rr_one(a: int, M: int) -> tuple[int, int] | None:
+    n, d, ok = rational_reconstruct(np.array([a], dtype=object if M >= 1 << 62 else np.int64), M)
+    return (int(n[0]), int(d[0])) if ok[0] else None
 
 
 def _div_array(D: int, d: np.ndarray) -> np.ndarray:
@@ -550,13 +693,16 @@ def charpoly_bounded(A: QMat, root_bound: int) -> flint.fmpz_poly:
     if s == 0:
         return flint.fmpz_poly([1])
     need = 2 * (1 + root_bound) ** s
+    Z = fmpz_matrix(A.num)
     res: list[list[int]] = []
     mods: list[int] = []
     prod = 1
     for ell in word_primes(1 << 62):
         if A.den % ell == 0:
             continue
-        Mt = nmod_matrix(A, ell)
+        Mt = flint.nmod_mat(Z, ell)
+        if A.den != 1:
+            Mt = Mt * pow(A.den % ell, -1, ell)
         res.append([int(c) for c in Mt.charpoly().coeffs()])
         mods.append(ell)
         prod *= ell
@@ -569,14 +715,17 @@ def charpoly_bounded(A: QMat, root_bound: int) -> flint.fmpz_poly:
     return flint.fmpz_poly(coeffs)
 
 
+def fmpz_matrix(Z: np.ndarray) -> flint.fmpz_mat:
+    r, c = Z.shape
+    if r == 0 or c == 0:
+        return flint.fmpz_mat(r, c)
+    return flint.fmpz_mat(r, c, [int(x) for x in Z.ravel()] if Z.dtype == object
+                          else Z.ravel().tolist())
+
+
 def nmod_matrix(A: QMat, ell: int) -> flint.nmod_mat:
     """A modulo ℓ as an nmod_mat (any word-size prime ℓ not dividing den)."""
-    r, c = A.shape
-    if A.num.dtype == object:
-        vals = [int(x) % ell for x in A.num.ravel()]
-    else:
-        vals = np.mod(A.num, ell).ravel().tolist()
-    M = flint.nmod_mat(r, c, vals, ell)
+    M = flint.nmod_mat(fmpz_matrix(A.num), ell)
     if A.den % ell != 1:
         M = M * pow(A.den % ell, -1, ell)
     return M

@@ -1,4 +1,4 @@
--- nfb database schema, version 1, postgresql dialect.
+-- nfb database schema, version 2, postgresql dialect.
 -- GENERATED from builder/storage/models.py by `python -m builder.storage.models`;
 -- do not edit by hand (tests/test_schema.py checks that it is in sync).
 -- Column meanings: schema/README.md.
@@ -63,7 +63,7 @@ CREATE TABLE newforms (
 	orbit INTEGER NOT NULL,
 	dim INTEGER NOT NULL,
 	field_poly JSON NOT NULL,
-	field_disc TEXT NOT NULL,
+	field_disc TEXT,
 	traces JSON NOT NULL,
 	al_primes JSON NOT NULL,
 	al_signs JSON NOT NULL,

@@ -36,7 +36,16 @@ import numpy as np
 from builder.arith import factor, is_prime, primes_up_to
 from builder.forms.fields import NumberField, _power_sums
 from builder.forms.newspace import NewSpace, Orbit
-from builder.linalg_modp import QMat, float_primes, matmul_mod
+from builder.linalg_modp import (
+    QMat,
+    _as_int,
+    _common_denominator_lift,
+    crt_arrays,
+    float_primes,
+    matmul_mod,
+    q_equal,
+    rref_mod,
+)
 
 _V_SCAN = 400  # free generators tried as the base symbol v before giving up on ℓ
 
@@ -61,24 +70,22 @@ class _ModState:
         self.fmod: list = [None] * len(orbits)
         self.v: list = [None] * len(orbits)
         self.inv_v: list = [None] * len(orbits)
-        Xl = new.X.mod(ell) if new.X.den % ell else None
-        if Xl is None:
+        st = new.mod(ell)
+        if not st.ok:
             return
-        groups: dict[int, list[int]] = {}
+        groups: dict[tuple, list[int]] = {}
         for i, o in enumerate(orbits):
-            groups.setdefault(id(o.piece), []).append(i)
-        for members in groups.values():
-            self._piece(Xl, members)
+            groups.setdefault(o.label, []).append(i)
+        for label, members in groups.items():
+            self._piece(st, label, members)
         self._choose_base()
 
-    def _piece(self, Xl: np.ndarray, members: list[int]) -> None:
+    def _piece(self, st, label, members: list[int]) -> None:
         ell, sysm = self.ell, self.system
-        o0 = sysm.orbits[members[0]]
-        A = o0.operator()
-        Y = o0.piece.basis
-        if A.den % ell == 0 or Y.den % ell == 0:
+        if st.piece(label) is None:
             return
-        Al, Yl = A.mod(ell), Y.mod(ell)
+        o0 = sysm.orbits[members[0]]
+        Al = st.op(label, "T", o0.prime)
         s = Al.shape[0]
         chi = [int(c) % ell for c in (o0.poly * o0.cofactor).coeffs()]
         Kv = np.empty((s, s))
@@ -100,7 +107,7 @@ class _ModState:
         if not cols:
             return
         C = np.concatenate(cols, axis=1)
-        phi = matmul_mod(Xl, matmul_mod(Yl, C, ell), ell)
+        phi = matmul_mod(st.X, matmul_mod(st.basis(label), C, ell), ell)
         off = 0
         for i in which:
             d = sysm.orbits[i].dim
@@ -314,7 +321,10 @@ class EigenForm:
         return {p: self._exact[p] for p in ps}
 
     def ap_mod(self, p: int, ell: int) -> flint.nmod_poly:
-        """a_p reduced into F_ℓ[x]/(f); ZeroDivisionError if ℓ is not good for the orbit."""
+        """a_p reduced into F_ℓ[x]/(f) for a prime 1000 < ℓ < 2^21; ZeroDivisionError if ℓ
+        is not good for the orbit (it divides a denominator or a discriminant)."""
+        if not 1000 < ell < (1 << 21) or not is_prime(ell):
+            raise ValueError(f"ell must be a prime between 1000 and 2^21, got {ell}")
         return self.system.aps_mod(self.index, [p], ell)[p]
 
     def good_primes(self):
@@ -324,23 +334,87 @@ class EigenForm:
         """Whether φ(x) ≠ 0 modulo ℓ for the element x with free coordinates ``row``."""
         return not self.system.phi_mod(self.index, row, ell).is_zero()
 
-    # -- exact functional (tests, L-values) ------------------------------------------------------
+    # -- exact functionals (L-values, rational orbits, tests) ------------------------------------
     @cached_property
     def _exact_dual(self) -> QMat:
-        """X·U: the orbit's exact dual (n × d), U = ker f(T_q) on the piece."""
+        """The orbit's functionals exactly: U (n × d, free coordinates), U[P] = identity.
+
+        Modulo good primes the columns of φ (the coefficients of the eigen-functional in the
+        power basis of α) span the orbit's functionals; their column echelon form is lifted
+        by CRT and rational reconstruction and accepted only after exact checks:
+        U ⊂ Ann(Old) (Z_old·U = 0), W_Q U = ε_Q U, and T_q U = U·A_q with A_q of
+        characteristic polynomial f, T_{q_i}U = U·A_i with g_i(A_i)^(e_i) = 0 along the
+        piece's path.  These conditions put span U inside the exact piece, T_q-stable with
+        characteristic polynomial f, which has multiplicity one there: span U is the orbit.
+        If no lift passes, the orbit's exact kernel (newspace.Orbit.dual_columns) is used.
+        """
+        sysm, i, d = self.system, self.index, self.d
+        lo = sysm.offsets[i]
+        piv = None
+        acc, M = None, 1
+        for count, ell in enumerate(sysm.good_primes(i)):
+            if count >= 24:
+                break
+            Phi = sysm.state(ell).phi[:, lo : lo + d]
+            R, pv = rref_mod(np.ascontiguousarray(Phi.T), ell)
+            if len(pv) < d:
+                continue
+            if piv is None:
+                piv = pv
+            elif pv != piv:
+                continue
+            U = np.ascontiguousarray(R.T).astype(np.int64)  # n × d, U[piv] = identity
+            if acc is None:
+                acc, M = U, ell
+                continue
+            acc, M = crt_arrays(acc, M, U, ell)
+            lifted = _common_denominator_lift(acc, M)
+            if lifted is not None:
+                cand = QMat(_as_int(np.asarray(lifted[0], dtype=object)), lifted[1])
+                if self._is_orbit_dual(cand, piv):
+                    return cand
         return self.new.X @ self.orbit.dual_columns
+
+    def _is_orbit_dual(self, U: QMat, piv: list[int]) -> bool:
+        new, o = self.new, self.orbit
+        if not _all_zero(new.apply_exact("old", 0, U.num)):
+            return False
+        checks = [("T", o.prime, o.poly, 1)]
+        for step in o.label:
+            if step[0] == "W":
+                _, Q, eps = step
+                checks.append(("W", Q, flint.fmpz_poly([-eps, 1]), 1))
+            else:
+                _, q, g, e = step
+                checks.append(("T", q, flint.fmpz_poly(list(g)), e))
+        for kind, n, g, e in checks:
+            T = new.full_op(kind, n)
+            TU = QMat(new.apply_exact(kind, n, U.num), T.den * U.den)
+            A = QMat(TU.num[piv], TU.den).reduced()  # T·U = U·A if span U is T-stable
+            if not q_equal(TU, U @ A):
+                return False
+            Af = A.to_fmpq_mat()
+            gA = _poly_power_at(g, e, Af)
+            if any(gA[r, c] != 0 for r in range(gA.nrows()) for c in range(gA.ncols())):
+                return False
+        return True
 
     def dual_values(self, row: QMat) -> list[flint.fmpq]:
         """u_j(x) for the exact dual basis u_1..u_d and x given by free coordinates."""
         V = row @ self._exact_dual
         return [flint.fmpq(int(V.num[0, j]), V.den) for j in range(self.d)]
 
+    def vanishes_on(self, row: QMat) -> bool:
+        """Whether φ(x) = 0 exactly, x given by free coordinates: u_j(x) = 0 for the exact
+        dual basis u_j (the entries of an eigenvector are Q-linearly independent)."""
+        return all(v == 0 for v in self.dual_values(row))
+
     @cached_property
     def _eigvec(self) -> flint.fmpq_mat:
         """Cm (d × d): c = Cm·(1, α, …) is an eigenvector of T_q on the dual basis."""
         U = self._exact_dual
-        T = self.space.hecke_dense(self.orbit.prime)
-        TU = T @ U
+        TU = QMat(self.new.apply_exact("T", self.orbit.prime, U.num),
+                  self.space.hecke_dense(self.orbit.prime).den * U.den)
         A = _solve_cols(U.to_fmpq_mat(), TU.to_fmpq_mat())
         return _eigvec_matrix(self.orbit.poly, A)
 
@@ -354,16 +428,20 @@ class EigenForm:
             out = out + self.K.elt(coeff) * vals[j]
         return out % self.K.f
 
+    def rational_functional(self) -> np.ndarray:
+        """For d = 1: the exact eigen-functional on the free generators (primitive integers)."""
+        if self.d != 1:
+            raise ValueError("rational_functional needs a rational orbit")
+        return _primitive(np.asarray(self._exact_dual.num[:, 0], dtype=object))
+
     def rational_values(self) -> list[int]:
         """For d = 1: the primitive integer functional φ on every Manin symbol (exact)."""
-        if self.d != 1:
-            raise ValueError("rational_values needs a rational orbit")
-        U = self._exact_dual  # n × 1
+        lam = self.rational_functional()
         indptr, gen, num, _den = self.space.coord_csr
-        u = U.num[:, 0]
+        u = _as_int(lam)
         big = int(np.max(np.abs(u), initial=0)) * int(np.max(np.abs(num), initial=0))
         if u.dtype == object or big * int(np.max(np.diff(indptr), initial=1)) >= (1 << 62):
-            u, terms = u.astype(object), num.astype(object) * u.astype(object)[gen]
+            terms = num.astype(object) * u.astype(object)[gen]
         else:
             terms = num * u[gen]
         rows = np.repeat(np.arange(len(indptr) - 1), np.diff(indptr))
@@ -374,6 +452,32 @@ class EigenForm:
         for v in vals:
             g = _gcd(g, v)
         return [v // g for v in vals] if g else vals
+
+
+def _primitive(v: np.ndarray) -> np.ndarray:
+    g = 0
+    for x in v:
+        g = _gcd(g, int(x))
+    if g == 0:
+        return v
+    return np.array([int(x) // g for x in v], dtype=object)
+
+
+def _poly_power_at(g: flint.fmpz_poly, e: int, A: flint.fmpq_mat) -> flint.fmpq_mat:
+    d = A.nrows()
+    R = flint.fmpq_mat(d, d)
+    for c in reversed([int(x) for x in g.coeffs()]):
+        R = R * A
+        for t in range(d):
+            R[t, t] += c
+    out = R
+    for _ in range(e - 1):
+        out = out * R
+    return out
+
+
+def _all_zero(A: np.ndarray) -> bool:
+    return not np.any(np.asarray(A) != 0)
 
 
 def eigen_system(new: NewSpace) -> EigenSystem:

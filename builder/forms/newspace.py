@@ -3,7 +3,7 @@ splitting into Galois orbits of newforms.
 
 Why functionals.  A newform f gives a functional φ_f on the symbols M = M_k(Γ0(N))⁺
 (its period map) with φ_f∘T_n = a_n(f)·φ_f; the eigenvalues of every orbit are read
-off such a functional ([St] §9.3, [Cr] §2.9).  So we compute the space D of those
+off such a functional ([St] §9.3, [Cr] §2.9).  So we compute the space of those
 functionals directly and never the new *subspace* of M.
 
 The old-dual.  Let Old ⊂ M be the span of the images of the symbols of the levels N/p
@@ -14,31 +14,36 @@ The old-dual.  Let Old ⊂ M be the span of the images of the symbols of the lev
 
 is Hecke- and W_Q-stable and is, as a Hecke module, the dual of M/Old: the new cusp
 forms plus the new Eisenstein part.  It is the right kernel of one integer matrix with
-rows α_1(g) and α_1(g)·W_N (g a basis of M_{N/p}), computed exactly by
-``linalg_modp.exact_rref`` (modular elimination, rational reconstruction, exact check).
-Operators act on functionals by λ ↦ T·λ (T given on rows, v ↦ v·T); on Ann(Old) with
-basis X (X[free] = identity) their matrix is (T·X)[free, :].
+rows α_1(g) and α_1(g)·W_N (g a basis of M_{N/p}), computed exactly once by
+``linalg_modp.exact_rref`` (modular elimination, Dixon lifting, exact check).  Its basis
+X (X[free] = identity) is the certificate of everything below.  Operators act on
+functionals by λ ↦ T·λ (T given on rows, v ↦ v·T); on Ann(Old) their matrix is
+(T·X)[free, :].
 
-Splitting (design.md §3).  The W_Q (Q ∥ N) are commuting involutions: Ann(Old) is the
-direct sum of its sign-vector eigenspaces.  On each, factor the exact characteristic
-polynomial of T_q (q the smallest prime ∤ N).  Its Eisenstein factors are recognised
-exactly: T_q acts on the Eisenstein part by ψ(q) + q^(k−1)ψ̄(q) for characters ψ with
-cond(ψ)² | N ([DS] §4.5–4.8, Eisenstein series E_k^{ψ,ψ̄}), whose minimal polynomials
-we compute from Ramanujan sums; cusp eigenvalues are real with |a_q| ≤ 2q^((k−1)/2)
-(Deligne), so the two never share a factor.  A cusp factor of multiplicity one is an
-orbit (multiplicity one for newforms, [AL]); a repeated one is refined with the next
-prime on its exact primary subspace, up to the Sturm bound.  The total cusp dimension is
-checked against G. Martin's formula [Mt].
+Pieces modulo primes.  All further linear algebra is done modulo primes ℓ < 2^21 on the
+reduction X mod ℓ (``_ModStructure``), where it is exact reduction of the exact objects:
+* W_Q (Q ∥ N) are commuting involutions, also modulo ℓ, so the sign pieces modulo ℓ
+  have dimensions adding up to dim Ann(Old); as each is at least the exact dimension,
+  they are the reductions of the exact pieces;
+* a primary part ker g(T_q)^e is used modulo ℓ only where g stays coprime to the rest of
+  the characteristic polynomial modulo ℓ (then its dimension is the exact one).
 
-Characteristic polynomials are computed modulo word primes and lifted by CRT with the
-bound (1 + ρ)^s on the coefficients (all eigenvalues are algebraic integers with
-|·| ≤ ρ = 1 + q^(k−1)), so they are exact.
+Splitting (design.md §3).  On each sign piece, the exact characteristic polynomial of T_q
+(q the smallest prime ∤ N) comes from its reductions by CRT with the bound (1 + ρ)^s
+on the coefficients (eigenvalues are algebraic integers of absolute value ≤ ρ =
+1 + q^(k−1)).  Its Eisenstein factors are recognised exactly: T_q acts on the Eisenstein
+part by ψ(q) + q^(k−1)ψ̄(q) for characters ψ with cond(ψ)² | N ([DS] §4.5–4.8), whose
+minimal polynomials we compute from Ramanujan sums; cusp eigenvalues are real with
+|a_q| ≤ 2q^((k−1)/2) (Deligne), so the two never share a factor.  A cusp factor of
+multiplicity one is an orbit (multiplicity one for newforms, [AL]); a repeated one is
+refined with the next prime on its primary part, up to the Sturm bound.  The total cusp
+dimension is checked against G. Martin's formula [Mt].
 """
 
 from __future__ import annotations
 
 from functools import cached_property
-from math import gcd, isqrt
+from math import comb, gcd, isqrt
 
 import flint
 import numpy as np
@@ -47,77 +52,147 @@ from builder.arith import divisors, factor, is_prime, moebius, prime_divisors, s
 from builder.linalg_modp import (
     QMat,
     charpoly_bounded,
-    column_space,
     exact_rref,
+    float_primes,
     int_matmul,
+    matmul_mod,
     q_equal,
+    rref_mod,
 )
 from builder.symbols.space import SymbolSpace, cuspidal_space
 
-
-class Piece:
-    """A Hecke-stable piece of Ann(Old): columns Y (r × s), with Y[rows, :] = identity.
-
-    ``ops[key]`` caches the s × s matrix (column action, T·Y = Y·A) of an operator.
-    """
-
-    def __init__(self, basis: QMat, rows: list[int], signs: dict[int, int]) -> None:
-        self.basis = basis
-        self.rows = rows
-        self.signs = dict(signs)
-        self.ops: dict = {}
-
-    @property
-    def dim(self) -> int:
-        return self.basis.shape[1]
-
-    def sub(self, K: QMat, free: list[int]) -> Piece:
-        """The piece spanned by the columns Y·K (K[free, :] = identity); operators carried."""
-        child = Piece((self.basis @ K) if self.dim else self.basis, [self.rows[f] for f in free],
-                      self.signs)
-        for key, A in self.ops.items():
-            child.ops[key] = QMat(int_matmul(A.num, K.num)[free], A.den * K.den).reduced()
-        return child
+Label = tuple  # path of a piece: (("W", Q, ε), …, ("P", q, g, e), …)
 
 
 class Orbit:
-    """A Galois orbit of newforms: the f-part of a piece for an irreducible f.
+    """A Galois orbit of newforms: the f-part of the piece ``label`` for an irreducible f.
 
-    ``prime``: q with T_q of charpoly ``poly`` (irreducible, degree d) on the orbit — the
-    proof of irreducibility; ``cofactor``: charpoly of T_q on the piece divided by
-    ``poly`` (coprime to it); ``hecke_poly``: charpoly of T_{q0} on the orbit for the
-    first prime q0 ∤ N; ``signs``: Q's prime ↦ ε_Q.
+    ``prime``: q with T_q of characteristic polynomial ``poly`` (irreducible, degree d) on
+    the orbit — the proof of irreducibility; ``cofactor``: the characteristic polynomial of
+    T_q on the piece divided by ``poly`` (coprime to it); ``hecke_poly``: the
+    characteristic polynomial of T_{q0} on the orbit for the first prime q0 ∤ N;
+    ``signs``: p ↦ ε_{p^e} (p^e ∥ N).
     """
 
-    def __init__(self, new: NewSpace, piece: Piece, prime: int, poly: flint.fmpz_poly,
-                 cofactor: flint.fmpz_poly, hecke_poly: flint.fmpz_poly) -> None:
+    def __init__(self, new: NewSpace, label: Label, prime: int, poly: flint.fmpz_poly,
+                 cofactor: flint.fmpz_poly, hecke_poly: flint.fmpz_poly,
+                 signs: dict[int, int]) -> None:
         self.new = new
-        self.piece = piece
+        self.label = label
         self.prime = prime
         self.poly = poly
         self.cofactor = cofactor
         self.hecke_poly = hecke_poly
-        self.signs = dict(piece.signs)
+        self.signs = dict(signs)
 
     @property
     def dim(self) -> int:
         return self.poly.degree()
 
-    def operator(self) -> QMat:
-        """T_prime on the piece (column action)."""
-        return self.new.piece_op(self.piece, "T", self.prime)
-
     @cached_property
     def dual_columns(self) -> QMat:
-        """Exact columns (r × d, old-dual coordinates) spanning the orbit: ker f(T_q)."""
-        A = self.operator()
-        K = exact_rref(poly_at(self.poly, A).num).kernel()
-        return self.piece.basis @ K if self.piece.dim else K
+        """Exact columns (r × d, old-dual coordinates) spanning the orbit's functionals.
+
+        The common kernel of the exact conditions along the piece's path and f(T_q): exact
+        arithmetic on Ann(Old), used by the tests and by rare exact fallbacks only.
+        """
+        new = self.new
+        blocks = []
+        for step in self.label:
+            if step[0] == "W":
+                _, Q, eps = step
+                blocks.append(_minus_scalar(new.op("W", Q), eps))
+            else:
+                _, q, g, e = step
+                blocks.append(poly_at(_power(flint.fmpz_poly(list(g)), e), new.op("T", q)))
+        blocks.append(poly_at(self.poly, new.op("T", self.prime)))
+        den = 1
+        for b in blocks:
+            den = den * b.den // gcd(den, b.den)
+        Z = np.concatenate([_times(b.num, den // b.den) for b in blocks], axis=0)
+        K = exact_rref(Z).kernel()
+        if K.shape[1] != self.dim:
+            raise ArithmeticError("the exact orbit has the wrong dimension")
+        return K
 
     @property
     def basis(self) -> flint.fmpq_mat:
         """The orbit as rows (d × r) in the coordinates of ``NewSpace.hecke`` (exact)."""
         return self.dual_columns.to_fmpq_mat().transpose()
+
+
+class _ModStructure:
+    """Ann(Old) and its pieces modulo one prime ℓ < 2^21 (see the module doc)."""
+
+    def __init__(self, new: NewSpace, ell: int) -> None:
+        self.new, self.ell = new, ell
+        self.ok = new.X.den % ell != 0
+        self.X = new.X.mod(ell) if self.ok else None
+        self._ops: dict = {}
+        self._pieces: dict = {(): (None, list(range(new.coord_dim)))} if self.ok else {}
+        self._piece_ops: dict = {}
+
+    def root_op(self, kind: str, n: int) -> np.ndarray:
+        """The operator on Ann(Old) modulo ℓ (r × r, column action)."""
+        key = (kind, n)
+        if key not in self._ops:
+            T = self.new.full_op(kind, n)
+            free = self.new.free
+            if len(free) == T.shape[0]:
+                self._ops[key] = T.mod(self.ell)
+            else:
+                self._ops[key] = matmul_mod(QMat(T.num[free], T.den).mod(self.ell), self.X,
+                                            self.ell)
+        return self._ops[key]
+
+    def piece(self, label: Label):
+        """(K, free) describing the piece inside its parent, or None if ℓ is bad for it."""
+        if label in self._pieces:
+            return self._pieces[label]
+        parent = self.piece(label[:-1])
+        out = None
+        if parent is not None:
+            step = label[-1]
+            s = self.dim(label[:-1])
+            if step[0] == "W":
+                _, Q, eps = step
+                A = self.op(label[:-1], "W", Q)
+                out = _kernel_mod(A - eps * np.eye(s), self.ell)
+            else:
+                _, q, g, e = step
+                A = self.op(label[:-1], "T", q)
+                G = _poly_at_mod(_power(flint.fmpz_poly(list(g)), e), A, self.ell)
+                K, free = _kernel_mod(G, self.ell)
+                rest = self.new.node_charpoly(label[:-1]) // _power(flint.fmpz_poly(list(g)), e)
+                gl = flint.nmod_poly([int(c) for c in g], self.ell)
+                rl = flint.nmod_poly([int(c) for c in rest.coeffs()], self.ell)
+                if len(free) == (len(g) - 1) * e and gl.gcd(rl).degree() == 0:
+                    out = (K, free)
+        self._pieces[label] = out
+        return out
+
+    def dim(self, label: Label) -> int:
+        if label == ():
+            return self.new.coord_dim
+        return len(self._pieces[label][1])
+
+    def op(self, label: Label, kind: str, n: int) -> np.ndarray:
+        """An operator on the piece modulo ℓ (s × s, column action, A·K = K·A')."""
+        if label == ():
+            return self.root_op(kind, n)
+        key = (label, kind, n)
+        if key not in self._piece_ops:
+            K, free = self.piece(label)
+            A = self.op(label[:-1], kind, n)
+            self._piece_ops[key] = matmul_mod(A, K, self.ell)[free]
+        return self._piece_ops[key]
+
+    def basis(self, label: Label) -> np.ndarray:
+        """Columns of the piece in Ann(Old) coordinates (r × s) modulo ℓ."""
+        if label == ():
+            return np.eye(self.new.coord_dim)
+        K, _ = self.piece(label)
+        return matmul_mod(self.basis(label[:-1]), K, self.ell)
 
 
 class NewSpace:
@@ -130,8 +205,11 @@ class NewSpace:
         self.N, self.k = space.N, space.k
         self.X, self.free = self._old_dual()
         self.coord_dim = len(self.free)
+        self._mods: dict[int, _ModStructure] = {}
+        self._charpolys: dict[Label, flint.fmpz_poly] = {}
+        self._split_prime: dict[Label, int] = {}
 
-    # -- the old-dual --------------------------------------------------------------------
+    # -- the old-dual (exact) ----------------------------------------------------------------
     def _old_dual(self) -> tuple[QMat, list[int]]:
         S = self.space
         n = S.dim
@@ -144,53 +222,64 @@ class NewSpace:
             blocks.append(Tr.num)
             blocks.append(int_matmul(Tr.num, S.atkin_lehner_dense(self.N).num))
         if not blocks or n == 0:
+            self.old_conditions = np.zeros((0, n), dtype=np.int64)
             return QMat.identity(n), list(range(n))
-        Z = np.concatenate([_as_common(b) for b in blocks], axis=0)
+        Z = np.concatenate([b.astype(object) if b.dtype == object else b for b in blocks])
+        self.old_conditions = Z  # rows whose common kernel is Ann(Old)
         E = exact_rref(Z)
         return E.kernel(), E.free
 
-    def _full_op(self, kind: str, n: int) -> QMat:
+    def full_op(self, kind: str, n: int) -> QMat:
+        """T_n ("T") or W_n ("W") on the whole symbol space (rows = images), exact."""
         S = self.space
         return S.hecke_dense(n) if kind == "T" else S.atkin_lehner_dense(n)
 
+    def apply_exact(self, kind: str, n: int, v: np.ndarray) -> np.ndarray:
+        """num·v exactly for the integer numerator of an operator on M ("T", "W") or of the
+        old conditions ("old"), with a cached float copy of the (big) matrix."""
+        key = ("float", kind, n)
+        cache = self._exact_ops
+        if key not in cache:
+            A = self.old_conditions if kind == "old" else self.full_op(kind, n).num
+            small = A.dtype != object
+            cache[key] = (A, A.astype(np.float64) if small else None,
+                          _row_abs_max(A) if small else None)
+        A, Af, ra = cache[key]
+        if Af is not None and v.dtype != object and ra * int(np.max(np.abs(v), initial=0)) < (
+                1 << 53):
+            return np.rint(Af @ v.astype(np.float64)).astype(np.int64)
+        return int_matmul(A, v)
+
     @cached_property
-    def _op_cache(self) -> dict:
+    def _exact_ops(self) -> dict:
         return {}
 
     def op(self, kind: str, n: int) -> QMat:
-        """The operator (T_n: "T", W_Q: "W") on Ann(Old), column action, exact."""
+        """The operator on Ann(Old), column action, exact (tests and exact fallbacks)."""
         key = (kind, n)
-        if key not in self._op_cache:
-            T = self._full_op(kind, n)
+        if key not in self._exact_ops:
+            T = self.full_op(kind, n)
             if len(self.free) == self.space.dim:
                 A = T
             else:
                 TX = QMat(int_matmul(T.num, self.X.num), T.den * self.X.den)
                 A = QMat(TX.num[self.free], TX.den).reduced()
-                # Ann(Old) is stable: T·X = X·A exactly (a check, cheap)
                 if not q_equal(TX, self.X @ A):
                     raise ArithmeticError(f"level {self.N}: Ann(Old) is not {kind}_{n}-stable")
-            self._op_cache[key] = A
-        return self._op_cache[key]
+            self._exact_ops[key] = A
+        return self._exact_ops[key]
 
-    def piece_op(self, piece: Piece, kind: str, n: int) -> QMat:
-        key = (kind, n)
-        if key not in piece.ops:
-            A = self.op(kind, n)
-            if piece.dim == self.coord_dim and piece.rows == list(range(self.coord_dim)):
-                piece.ops[key] = A
-            else:
-                AY = int_matmul(A.num, piece.basis.num)[piece.rows]
-                piece.ops[key] = QMat(AY, A.den * piece.basis.den).reduced()
-        return piece.ops[key]
-
-    # -- API in rows convention (v ↦ v·M), as the tests and notebooks use it -------------
     def hecke(self, n: int) -> flint.fmpq_mat:
         """T_n on the old-dual coordinates, rows convention (the transpose of ``op``)."""
         return self.op("T", n).to_fmpq_mat().transpose()
 
     def atkin_lehner(self, Q: int) -> flint.fmpq_mat:
         return self.op("W", Q).to_fmpq_mat().transpose()
+
+    def mod(self, ell: int) -> _ModStructure:
+        if ell not in self._mods:
+            self._mods[ell] = _ModStructure(self, ell)
+        return self._mods[ell]
 
     def good_primes(self) -> list[int]:
         """Primes q ∤ N up to the Sturm bound (at least one), increasing."""
@@ -203,80 +292,153 @@ class NewSpace:
             q += 1
         return out
 
-    # -- splitting ------------------------------------------------------------------------
-    def sign_pieces_full(self) -> list[Piece]:
-        """Ann(Old) split by the Atkin–Lehner signs (Eisenstein part included)."""
-        r = self.coord_dim
-        pieces = [Piece(QMat.identity(r), list(range(r)), {})]
+    # -- pieces and their exact characteristic polynomials --------------------------------------
+    def _sign_labels(self) -> list[tuple[Label, dict[int, int]]]:
+        """The nonzero Atkin–Lehner sign pieces (dimensions read modulo the first good ℓ)."""
+        labels: list[tuple[Label, dict[int, int]]] = [((), {})]
+        st = self._first_mod()
         for p, e in factor(self.N):
             Q = p**e
             out = []
-            for P in pieces:
-                if P.dim == 0:
-                    continue
-                W = self.piece_op(P, "W", Q)
+            for lab, signs in labels:
                 for eps in (1, -1):
-                    E = exact_rref(_minus_scalar(W, eps).num)
-                    if E.rank == P.dim:
-                        continue
-                    child = P.sub(E.kernel(), E.free)
-                    child.signs[p] = eps
-                    out.append(child)
-            pieces = out
-        return [P for P in pieces if P.dim]
+                    child = lab + (("W", Q, eps),)
+                    if st.piece(child) is not None and st.dim(child):
+                        out.append((child, {**signs, p: eps}))
+            labels = out
+        return labels
+
+    def _first_mod(self) -> _ModStructure:
+        for ell in float_primes():
+            st = self.mod(ell)
+            if st.ok:
+                return st
+        raise ArithmeticError("no prime")  # pragma: no cover
+
+    def node_charpoly(self, label: Label) -> flint.fmpz_poly:
+        """Exact charpoly of the node's splitting operator T_q on the piece (CRT)."""
+        if label in self._charpolys:
+            return self._charpolys[label]
+        q = self._split_prime[label]
+        cusp = any(step[0] == "P" for step in label)
+        rho = isqrt(4 * q ** (self.k - 1)) + 1 if cusp else 1 + q ** (self.k - 1)
+        exact = self._exact_piece_op(label, q)
+        if exact is not None:
+            chi = charpoly_bounded(exact, rho)
+            self._charpolys[label] = chi
+            return chi
+        s = None
+        need = None
+        res, mods, prod = [], [], 1
+        bad = 0
+        for ell in float_primes():
+            st = self.mod(ell)
+            if not st.ok or st.piece(label) is None:
+                bad += 1
+                if bad > 50:
+                    raise ArithmeticError(f"level {self.N}: no good prime for a piece")
+                continue
+            A = st.op(label, "T", q)
+            if s is None:
+                s = A.shape[0]
+                need = 2 * (1 + rho) ** s
+            elif A.shape[0] != s:
+                continue
+            M = flint.nmod_mat(s, s, np.mod(A, ell).astype(np.int64).ravel().tolist(), ell)
+            res.append([int(c) for c in M.charpoly().coeffs()])
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        coeffs = []
+        for i in range(s + 1):
+            x = _crt_list([r[i] for r in res], mods)
+            coeffs.append(x - prod if x > prod // 2 else x)
+        chi = flint.fmpz_poly(coeffs)
+        self._charpolys[label] = chi
+        return chi
+
+    def _exact_piece_op(self, label: Label, q: int) -> QMat | None:
+        """T_q on a sign piece exactly, when the heights stay small (prime levels, most
+        small levels): then its characteristic polynomial needs few 62-bit primes instead
+        of many 21-bit ones.  None when it does not pay (big heights, primary parts)."""
+        if any(step[0] != "W" for step in label) or not self._small_heights:
+            return None
+        Y, rows = self._exact_sign_basis(label)
+        if Y is None:
+            return None
+        T = self.op("T", q)
+        return QMat(int_matmul(T.num, Y.num)[rows], T.den * Y.den).reduced()
 
     @cached_property
-    def _split(self) -> tuple[list[Orbit], dict]:
+    def _small_heights(self) -> bool:
+        return self.X.den == 1 and int(np.max(np.abs(self.X.num), initial=0)) < (1 << 20)
+
+    @cached_property
+    def _exact_bases(self) -> dict:
+        return {(): (QMat.identity(self.coord_dim), list(range(self.coord_dim)))}
+
+    def _exact_sign_basis(self, label: Label):
+        if label in self._exact_bases:
+            return self._exact_bases[label]
+        Y, rows = self._exact_sign_basis(label[:-1])
+        out = (None, None)
+        if Y is not None:
+            _, Q, eps = label[-1]
+            W = self.op("W", Q)
+            WY = QMat(int_matmul(W.num, Y.num)[rows], W.den * Y.den).reduced()
+            E = exact_rref(_minus_scalar(WY, eps).num)
+            K = E.kernel()
+            Y2 = Y @ K
+            if Y2.den < (1 << 40) and int(np.max(np.abs(Y2.num), initial=0)) < (1 << 40):
+                out = (Y2, [rows[f] for f in E.free])
+        self._exact_bases[label] = out
+        return out
+
+    # -- splitting ------------------------------------------------------------------------------
+    @cached_property
+    def _split(self) -> list[Orbit]:
         if self.coord_dim == 0:
-            return [], {}
+            return []
         primes = self.good_primes()
         orbits: list[Orbit] = []
-        eis: dict = {}
-        for P in self.sign_pieces_full():
-            self._split_piece(P, primes, 0, None, orbits, eis)
-        return orbits, eis
+        for label, signs in self._sign_labels():
+            self._split_node(label, signs, primes, 0, None, orbits)
+        return orbits
 
-    def _split_piece(self, P: Piece, primes: list[int], i: int, top, orbits: list, eis: dict):
+    def _split_node(self, label: Label, signs, primes: list[int], i: int, top,
+                    orbits: list[Orbit]) -> None:
         if i >= len(primes):
             raise ArithmeticError(
                 f"level {self.N} weight {self.k}: Hecke operators up to the Sturm bound "
                 "did not split the new subspace (multiplicity one violated?)"
             )
         q = primes[i]
-        A = self.piece_op(P, "T", q)
-        rho = 1 + q ** (self.k - 1) if i == 0 else isqrt(4 * q ** (self.k - 1)) + 1
-        chi = charpoly_bounded(A, rho)
+        self._split_prime[label] = q
+        chi = self.node_charpoly(label)
         _, facs = chi.factor()
         eis_polys = eisenstein_polys(self.N, self.k, q) if i == 0 else set()
         for g, e in sorted(facs, key=lambda fe: (fe[0].degree(), [int(c) for c in fe[0].coeffs()])):
             key = tuple(int(c) for c in g.coeffs())
             if key in eis_polys:
-                eis[tuple(sorted(P.signs.items()))] = eis.get(tuple(sorted(P.signs.items())), 0) + (
-                    g.degree() * e)
                 continue
             hp = g if top is None else top
             if e == 1:
-                cof = chi // g
-                d = g.degree()
-                hecke = hp if top is None else _power(top, d // top.degree())
-                orbits.append(Orbit(self, P, q, g, cof, hecke))
+                hecke = hp if top is None else _power(top, g.degree() // top.degree())
+                orbits.append(Orbit(self, label, q, g, chi // g, hecke, signs))
             else:
-                E = exact_rref(poly_at(_power(g, e), A).num)
-                sub = P.sub(E.kernel(), E.free)
-                if sub.dim != g.degree() * e:
-                    raise ArithmeticError(f"level {self.N}: primary part of wrong dimension")
-                self._split_piece(sub, primes, i + 1, hp, orbits, eis)
+                child = label + (("P", q, key, e),)
+                self._split_node(child, signs, primes, i + 1, hp, orbits)
 
     def orbits(self) -> list[Orbit]:
         """The Galois orbits of newforms, each with its proof of irreducibility."""
-        orbits = self._split[0]
         self._check_dim()
-        return list(orbits)
+        return list(self._split)
 
     @property
     def dim(self) -> int:
         """dim S_k^new(Γ0(N)) = the cusp part of Ann(Old)."""
-        return sum(o.dim for o in self._split[0])
+        return sum(o.dim for o in self._split)
 
     def _check_dim(self) -> None:
         from builder.checks.formulas import dim_new
@@ -287,34 +449,48 @@ class NewSpace:
                 f"G. Martin's formula {dim_new(self.N, self.k)}")
 
     def sign_pieces(self) -> list[tuple[dict[int, int], flint.fmpq_mat]]:
-        """(signs, rows) for every nonzero sign-vector eigenspace of the *cusp* new part.
-
-        The cusp part of a piece is the image of E(T_q) for E the Eisenstein part of the
-        characteristic polynomial of T_q on it (exact; for the API and the tests).
-        """
-        q = self.good_primes()[0]
+        """(signs, rows) for every nonzero sign-vector eigenspace of the new cusp part:
+        the orbits' exact functionals grouped by their signs (API and tests)."""
+        groups: dict[tuple, list[Orbit]] = {}
+        for o in self.orbits():
+            groups.setdefault(tuple(sorted(o.signs.items())), []).append(o)
         out = []
-        eis_polys = eisenstein_polys(self.N, self.k, q)
-        for P in self.sign_pieces_full():
-            A = self.piece_op(P, "T", q)
-            chi = charpoly_bounded(A, 1 + q ** (self.k - 1))
-            Epoly = flint.fmpz_poly([1])
-            for g, e in chi.factor()[1]:
-                if tuple(int(c) for c in g.coeffs()) in eis_polys:
-                    Epoly *= _power(g, e)
-            C = column_space(poly_at(Epoly, A))
-            if C.shape[1] == 0:
-                continue
-            cols = P.basis @ C
-            out.append((dict(P.signs), cols.to_fmpq_mat().transpose()))
+        for key in sorted(groups):
+            rows = [o.basis for o in groups[key]]
+            M = flint.fmpq_mat(sum(r.nrows() for r in rows), self.coord_dim)
+            i = 0
+            for r in rows:
+                for a in range(r.nrows()):
+                    for b in range(self.coord_dim):
+                        M[i, b] = r[a, b]
+                    i += 1
+            out.append((dict(key), M))
         return out
 
 
 # -- helpers ----------------------------------------------------------------------------------
 
 
-def _as_common(Z: np.ndarray) -> np.ndarray:
-    return Z.astype(object) if Z.dtype == object else Z
+def _kernel_mod(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:
+    """Right kernel modulo ℓ: K (s × s') with K[free, :] = identity."""
+    s = A.shape[1]
+    R, piv = rref_mod(np.mod(A, ell), ell)
+    ps = set(piv)
+    free = [c for c in range(s) if c not in ps]
+    K = np.zeros((s, len(free)))
+    K[free, np.arange(len(free))] = 1.0
+    if piv and free:
+        K[piv] = np.mod(-R[:, free], ell)
+    return K, free
+
+
+def _poly_at_mod(f: flint.fmpz_poly, A: np.ndarray, ell: int) -> np.ndarray:
+    s = A.shape[0]
+    R = np.zeros((s, s))
+    for c in reversed([int(x) % ell for x in f.coeffs()]):
+        R = matmul_mod(R, A, ell)
+        R[np.arange(s), np.arange(s)] += c
+    return np.mod(R, ell)
 
 
 def _minus_scalar(A: QMat, c: int) -> QMat:
@@ -322,6 +498,14 @@ def _minus_scalar(A: QMat, c: int) -> QMat:
     idx = np.arange(A.shape[0])
     num[idx, idx] = num[idx, idx] - c * A.den
     return QMat(num, A.den)
+
+
+def _row_abs_max(A: np.ndarray) -> int:
+    return int(np.max(np.sum(np.abs(A).astype(np.float64), axis=1))) if A.size else 0
+
+
+def _times(Z: np.ndarray, s: int) -> np.ndarray:
+    return Z if s == 1 else Z.astype(object) * s
 
 
 def _power(g: flint.fmpz_poly, e: int) -> flint.fmpz_poly:
@@ -334,28 +518,32 @@ def _power(g: flint.fmpz_poly, e: int) -> flint.fmpz_poly:
 def poly_at(f: flint.fmpz_poly, A: QMat) -> QMat:
     """f(A) for an exact square matrix, by Horner's rule (exact)."""
     s = A.shape[0]
-    coeffs = [int(c) for c in f.coeffs()]
     R = QMat(np.zeros((s, s), dtype=np.int64), 1)
-    for c in reversed(coeffs):
+    for c in reversed([int(x) for x in f.coeffs()]):
         R = R @ A if not R.is_zero() else R
         if c:
             R = _minus_scalar(R, -c)
     return R
 
 
+def _crt_list(res: list[int], mods: list[int]) -> int:
+    x, m = 0, 1
+    for r, q in zip(res, mods, strict=True):
+        t = ((r - x) * pow(m, -1, q)) % q
+        x += m * t
+        m *= q
+    return x
+
+
 def _ramanujan_sum(o: int, e: int) -> int:
     """Σ over primitive o-th roots of unity ζ of ζ^e (common practice)."""
-    g = gcd(o, e)
-    return sum(moebius(o // d) * d for d in divisors(g))
+    return sum(moebius(o // d) * d for d in divisors(gcd(o, e)))
 
 
 def _carmichael(u: int) -> int:
     lam = 1
     for p, e in factor(u):
-        if p == 2:
-            t = 1 if e == 1 else (2 if e == 2 else 2 ** (e - 2))
-        else:
-            t = (p - 1) * p ** (e - 1)
+        t = (1 if e == 1 else (2 if e == 2 else 2 ** (e - 2))) if p == 2 else (p - 1) * p ** (e - 1)
         lam = lam * t // gcd(lam, t)
     return lam
 
@@ -372,20 +560,15 @@ def eisenstein_polys(N: int, k: int, q: int) -> set[tuple[int, ...]]:
             orders.update(divisors(_carmichael(u)))
     out = set()
     for o in sorted(orders):
-        deg = len([j for j in range(1, o + 1) if gcd(j, o) == 1])
+        deg = sum(1 for j in range(1, o + 1) if gcd(j, o) == 1)
         ps = [0] * (deg + 1)
-        from math import comb
-
         for m in range(1, deg + 1):
             ps[m] = sum(comb(m, i) * c ** (m - i) * _ramanujan_sum(o, 2 * i - m)
                         for i in range(m + 1))
-        # Newton: e_m = (1/m) Σ_{i=1}^{m} (−1)^(i−1) e_{m−i} p_i
-        e = [1] + [0] * deg
+        e = [1] + [0] * deg  # Newton: m·e_m = Σ_{i=1}^{m} (−1)^(i−1) e_{m−i} p_i
         for m in range(1, deg + 1):
-            s = sum((-1) ** (i - 1) * e[m - i] * ps[i] for i in range(1, m + 1))
-            e[m] = s // m
-        coeffs = [(-1) ** (deg - j) * e[deg - j] for j in range(deg + 1)]  # const first
-        out.add(tuple(coeffs))
+            e[m] = sum((-1) ** (i - 1) * e[m - i] * ps[i] for i in range(1, m + 1)) // m
+        out.add(tuple((-1) ** (deg - j) * e[deg - j] for j in range(deg + 1)))
     return out
 
 

@@ -47,7 +47,7 @@ class NewformRecord:
     orbit: int  # 1-based position in the space's canonical order
     dim: int  # degree of the coefficient field K_f over Q
     field_poly: list[int]  # canonical defining polynomial, constant term first
-    field_disc: str  # discriminant of field_poly (decimal string)
+    field_disc: str | None  # discriminant of field_poly (decimal string); None if dim > dim_cap
     traces: list[int]  # Tr_{K/Q} a_n for n = 1..trace_bound; traces[0] == dim
     atkin_lehner: dict[int, int]  # p ↦ eigenvalue of W_{p^e} (p^e ∥ N), ±1
     fricke_sign: int  # eigenvalue of W_N

@@ -20,6 +20,7 @@ from builder.arith import (
     divisors,
     factor,
     is_prime,
+    iter_primes,
     primes_up_to,
     sturm_bound,
 )
@@ -107,7 +108,8 @@ def _orbit_data(E: EigenForm, traces: list[int], params: Params) -> dict:
     return {
         "dim": d,
         "field_poly": [int(c) for c in poly.coeffs()],
-        "field_disc": str(int(poly.discriminant())) if d > 1 else "1",
+        # above the cap the discriminant of the Hecke polynomial has up to ~10⁵ digits: not kept
+        "field_disc": (str(int(poly.discriminant())) if d > 1 else "1") if exact else None,
         "traces": traces,
         "atkin_lehner": signs,
         "fricke_sign": fricke,
@@ -222,7 +224,7 @@ def cm_discriminant(E: EigenForm) -> int | None:
         L = E.N * D * D // gcd(E.N, D * D)
         bound = sturm_bound(L, E.k)
         ok = True
-        for p in primes_up_to(bound):
+        for p in iter_primes(bound):
             if kronecker(D, p) != -1:
                 continue
             if not _ap_is_zero(E, p):
@@ -269,8 +271,10 @@ def _lvalue(E: EigenForm, root: int) -> tuple[bool | None, str | None]:
     ell = next(E.good_primes())
     if E.value_nonzero_mod(row, ell):
         zero = False
+    elif root == -1:
+        zero = True  # the functional equation forces the central zero
     else:
-        zero = all(v == 0 for v in E.dual_values(row))
+        zero = E.vanishes_on(row)
     ratio = l_ratio(E) if (E.d == 1 and E.k == 2) else None
     return zero, ratio
 

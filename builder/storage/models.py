@@ -39,7 +39,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 STATUS_DONE = "done"
 STATUS_FAILED = "failed"
@@ -114,7 +114,8 @@ class Newform(Base):
     orbit: Mapped[int] = mapped_column(Integer)
     dim: Mapped[int] = mapped_column(Integer)
     field_poly: Mapped[list] = mapped_column(JSON)  # integer coefficients, constant first
-    field_disc: Mapped[str] = mapped_column(Text)  # decimal string (may exceed 64 bits)
+    # decimal string (may exceed 64 bits); NULL above the unit's dim_cap
+    field_disc: Mapped[str | None] = mapped_column(Text, nullable=True)
     traces: Mapped[list] = mapped_column(JSON)  # Tr a_n, n = 1..trace_bound
     al_primes: Mapped[list] = mapped_column(JSON)  # primes p | N, increasing
     al_signs: Mapped[list] = mapped_column(JSON)  # W_{p^e} eigenvalue for each, ±1

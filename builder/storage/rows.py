@@ -51,7 +51,7 @@ def newform_row(rec: SpaceRecord, f: NewformRecord) -> dict:
         "orbit": f.orbit,
         "dim": f.dim,
         "field_poly": [int(c) for c in f.field_poly],
-        "field_disc": str(f.field_disc),
+        "field_disc": None if f.field_disc is None else str(f.field_disc),
         "traces": [int(t) for t in f.traces],
         "al_primes": primes,
         "al_signs": [int(f.atkin_lehner[p]) for p in primes],

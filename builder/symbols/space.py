@@ -521,11 +521,29 @@ class SymbolSpace:
     def hecke_images(self, x: int, ns: list[int]) -> QMat:
         """Rows T_n(x) (free coordinates, exact) of one Manin symbol x for every n in ns.
 
-        Merel's formula [Me]: one Heilbronn sum per n, all accumulated at once with numpy.
+        Merel's formula [Me]: one Heilbronn sum per n, accumulated with numpy in chunks
+        of a few hundred thousand symbol coordinates (bounded memory).
         """
         i, j = divmod(x, self.psi)
         u, v = int(self.P1.c[j]), int(self.P1.d[j])
-        rows, syms, coefs = [], [], []
+        indptr = self.coord_csr[0]
+        out: list[QMat] = []
+        rows: list = []
+        syms: list = []
+        coefs: list = []
+        start, load = 0, 0
+
+        def flush(stop: int) -> None:
+            nonlocal rows, syms, coefs, start, load
+            if rows:
+                coef = np.concatenate(coefs)
+                out.append(self._accumulate(
+                    np.concatenate(rows) - start, np.concatenate(syms),
+                    _as_int(coef) if coef.dtype == object else coef, stop - start))
+            else:
+                out.append(QMat(np.zeros((stop - start, self.dim), dtype=np.int64), 1))
+            rows, syms, coefs, start, load = [], [], [], stop, 0
+
         for r, n in enumerate(ns):
             a, b, c, d = hecke_matrices(check_index(n))
             t = self.P1.index(u * a + v * c, u * b + v * d)
@@ -534,19 +552,27 @@ class SymbolSpace:
                 rows.append(np.full(len(ok), r, dtype=np.int64))
                 syms.append(t[ok])
                 coefs.append(np.ones(len(ok), dtype=np.int64))
-                continue
-            for h in ok.tolist():
-                A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), self.w)[i]
-                for m, cf in enumerate(A):
-                    if cf:
-                        rows.append(np.array([r], dtype=np.int64))
-                        syms.append(np.array([m * self.psi + int(t[h])], dtype=np.int64))
-                        coefs.append(np.array([cf], dtype=object))
-        if not rows:
-            return QMat(np.zeros((len(ns), self.dim), dtype=np.int64), 1)
-        coef = np.concatenate(coefs)
-        return self._accumulate(np.concatenate(rows), np.concatenate(syms),
-                                _as_int(coef) if coef.dtype == object else coef, len(ns))
+                load += int(np.sum(indptr[t[ok] + 1] - indptr[t[ok]]))
+            else:
+                for h in ok.tolist():
+                    A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), self.w)[i]
+                    for m, cf in enumerate(A):
+                        if cf:
+                            sym = m * self.psi + int(t[h])
+                            rows.append(np.array([r], dtype=np.int64))
+                            syms.append(np.array([sym], dtype=np.int64))
+                            coefs.append(np.array([cf], dtype=object))
+                            load += int(indptr[sym + 1] - indptr[sym])
+            if load > 1_500_000:
+                flush(r + 1)
+        if start < len(ns) or not out:
+            flush(len(ns))
+        den = 1
+        for q in out:
+            den = den * q.den // gcd(den, q.den)
+        parts = [q.num if q.den == den else _times(q.num, den // q.den) for q in out]
+        return QMat(np.concatenate([_as_int(p.astype(object)) if p.dtype == object else p
+                                    for p in parts], axis=0), den)
 
     @_per_instance
     def atkin_lehner_dense(self, Q: int) -> QMat:
@@ -688,6 +714,12 @@ class SymbolSpace:
                 _add_into(acc, self.pres.coords(i * self.psi + jN))
             rows.append(acc)
         return rows_to_fmpq_mat(rows, self.dim)
+
+
+def _times(Z: np.ndarray, s: int) -> np.ndarray:
+    if Z.dtype != object and int(np.max(np.abs(Z), initial=0)) * s < (1 << 62):
+        return Z * s
+    return Z.astype(object) * s
 
 
 def _frac(num: int, den: int):

@@ -557,7 +557,8 @@ def _post_filter(src: Source, f: Filters, df: pd.DataFrame) -> pd.DataFrame:
         return df
     keep = np.ones(len(df), dtype=bool)
     if f.disc:
-        keep &= np.array([in_ranges(int(d), f.disc) for d in df["field_disc"]], dtype=bool)
+        keep &= np.array([d is not None and not (isinstance(d, float) and np.isnan(d))
+                          and in_ranges(int(d), f.disc) for d in df["field_disc"]], dtype=bool)
     if f.ap:
         df = df[keep].copy()
         keep = np.ones(len(df), dtype=bool)

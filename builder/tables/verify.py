@@ -339,6 +339,8 @@ def _check_orbit_sum(res_sum: CheckResult, res_rec: CheckResult, sp, N, k, rows)
             (lab, f"orbits numbered {numbers}, not 1..{len(rows)}; missing {', '.join(missing)}")
         )
     primes_N = [p for p, _ in F.factorize(N)] if N > 1 else []
+    cap = getattr(sp, "dim_cap", None)
+    cap = 10**9 if cap is None or pd.isna(cap) else int(cap)
     for r in rows:
         olab = r.label
         res_rec.checked.add(olab)
@@ -353,8 +355,12 @@ def _check_orbit_sum(res_sum: CheckResult, res_rec: CheckResult, sp, N, k, rows)
         else:
             import flint
 
-            disc = int(flint.fmpz_poly(poly).discriminant()) if len(poly) > 2 else 1
-            if str(disc) != str(r.field_disc) and int(r.dim) > 1:
+            if r.field_disc is None or (isinstance(r.field_disc, float) and pd.isna(r.field_disc)):
+                if int(r.dim) <= int(cap):
+                    problems.append(f"field_disc missing for dim {r.dim} ≤ dim_cap {cap}")
+            elif str(flint.fmpz_poly(poly).discriminant() if len(poly) > 2 else 1) != str(
+                    r.field_disc) and int(r.dim) > 1:
+                disc = int(flint.fmpz_poly(poly).discriminant())
                 problems.append(f"field_disc {r.field_disc} ≠ disc(field_poly) = {disc}")
         if [int(p) for p in r.al_primes] != primes_N:
             problems.append(f"al_primes {list(r.al_primes)} ≠ primes of N {primes_N}")
