@@ -434,24 +434,30 @@ class EigenForm:
             raise ValueError("rational_functional needs a rational orbit")
         return _primitive(np.asarray(self._exact_dual.num[:, 0], dtype=object))
 
-    def rational_values(self) -> list[int]:
-        """For d = 1: the primitive integer functional φ on every Manin symbol (exact)."""
+    def rational_values(self) -> np.ndarray:
+        """For d = 1: the primitive integer functional φ on every Manin symbol (exact), as an
+        int64 array (object when the values are large)."""
         lam = self.rational_functional()
         indptr, gen, num, _den = self.space.coord_csr
         u = _as_int(lam)
         big = int(np.max(np.abs(u), initial=0)) * int(np.max(np.abs(num), initial=0))
         if u.dtype == object or big * int(np.max(np.diff(indptr), initial=1)) >= (1 << 62):
             terms = num.astype(object) * u.astype(object)[gen]
+            rows = np.repeat(np.arange(len(indptr) - 1), np.diff(indptr))
+            vals = np.zeros(len(indptr) - 1, dtype=object)
+            np.add.at(vals, rows, terms)
         else:
-            terms = num * u[gen]
-        rows = np.repeat(np.arange(len(indptr) - 1), np.diff(indptr))
-        vals = np.zeros(len(indptr) - 1, dtype=terms.dtype)
-        np.add.at(vals, rows, terms)
-        vals = [int(v) for v in vals]
-        g = 0
-        for v in vals:
-            g = _gcd(g, v)
-        return [v // g for v in vals] if g else vals
+            csum = np.concatenate([[0], np.cumsum(num * u[gen])])
+            vals = csum[indptr[1:]] - csum[indptr[:-1]]
+        g = int(np.gcd.reduce(vals)) if vals.dtype != object else _gcd_all(vals)
+        return vals // g if g else vals
+
+
+def _gcd_all(v: np.ndarray) -> int:
+    g = 0
+    for x in v:
+        g = _gcd(g, int(x))
+    return g
 
 
 def _primitive(v: np.ndarray) -> np.ndarray:

@@ -62,6 +62,8 @@ from builder.linalg_modp import (
 from builder.symbols.space import SymbolSpace, cuspidal_space
 
 Label = tuple  # path of a piece: (("W", Q, ε), …, ("P", q, g, e), …)
+EXACT_PIECES_MAX = 8  # exact sign pieces (62-bit charpolys) for at most this many pieces …
+EXACT_PIECE_MIN_DIM = 80  # … when the biggest has at least this dimension
 
 
 class Orbit:
@@ -359,41 +361,42 @@ class NewSpace:
         return chi
 
     def _exact_piece_op(self, label: Label, q: int) -> QMat | None:
-        """T_q on a sign piece exactly, when the heights stay small (prime levels, most
-        small levels): then its characteristic polynomial needs few 62-bit primes instead
-        of many 21-bit ones.  None when it does not pay (big heights, primary parts)."""
-        if any(step[0] != "W" for step in label) or not self._small_heights:
+        """T_q on a sign piece exactly, when that is cheaper than many 21-bit primes.
+
+        A sign piece is the kernel of the integer matrix [old conditions; W_Q − ε_Q] on the
+        whole symbol space: one exact rref (Dixon) gives it with the heights of Ann(Old)
+        (not compounded), then its characteristic polynomial needs few 62-bit primes.  Used
+        for big pieces of levels with few sign vectors (prime levels, products of two
+        primes); None otherwise (primary parts, many small pieces).
+        """
+        if any(step[0] != "W" for step in label) or not self._exact_pieces_pay:
             return None
-        Y, rows = self._exact_sign_basis(label)
-        if Y is None:
+        E = self._exact_sign_piece(label)
+        if E is None:
             return None
-        T = self.op("T", q)
+        Y, rows = E
+        T = self.full_op("T", q)
         return QMat(int_matmul(T.num, Y.num)[rows], T.den * Y.den).reduced()
 
     @cached_property
-    def _small_heights(self) -> bool:
-        return self.X.den == 1 and int(np.max(np.abs(self.X.num), initial=0)) < (1 << 20)
+    def _exact_pieces_pay(self) -> bool:
+        labels = self._sign_labels()
+        st = self._first_mod()
+        biggest = max((st.dim(lab) for lab, _ in labels), default=0)
+        return len(labels) <= EXACT_PIECES_MAX and biggest >= EXACT_PIECE_MIN_DIM
 
-    @cached_property
-    def _exact_bases(self) -> dict:
-        return {(): (QMat.identity(self.coord_dim), list(range(self.coord_dim)))}
-
-    def _exact_sign_basis(self, label: Label):
-        if label in self._exact_bases:
-            return self._exact_bases[label]
-        Y, rows = self._exact_sign_basis(label[:-1])
-        out = (None, None)
-        if Y is not None:
-            _, Q, eps = label[-1]
-            W = self.op("W", Q)
-            WY = QMat(int_matmul(W.num, Y.num)[rows], W.den * Y.den).reduced()
-            E = exact_rref(_minus_scalar(WY, eps).num)
-            K = E.kernel()
-            Y2 = Y @ K
-            if Y2.den < (1 << 40) and int(np.max(np.abs(Y2.num), initial=0)) < (1 << 40):
-                out = (Y2, [rows[f] for f in E.free])
-        self._exact_bases[label] = out
-        return out
+    def _exact_sign_piece(self, label: Label):
+        S = self.space
+        blocks = [self.old_conditions] if self.old_conditions.shape[0] else []
+        for _, Q, eps in label:
+            W = S.atkin_lehner_dense(Q)
+            blocks.append(_minus_scalar(W, eps).num if W.den == 1 else None)
+        if any(b is None for b in blocks):
+            return None
+        Z = np.concatenate([b.astype(object) if b.dtype == object else b for b in blocks]) if (
+            len(blocks) > 1) else blocks[0]
+        E = exact_rref(Z)
+        return E.kernel(), E.free
 
     # -- splitting ------------------------------------------------------------------------------
     @cached_property
@@ -498,6 +501,11 @@ def _minus_scalar(A: QMat, c: int) -> QMat:
     idx = np.arange(A.shape[0])
     num[idx, idx] = num[idx, idx] - c * A.den
     return QMat(num, A.den)
+
+
+def _bits(A: QMat) -> int:
+    """Height of an exact matrix: bits of its denominator plus of its largest numerator."""
+    return A.den.bit_length() + int(np.max(np.abs(A.num), initial=0)).bit_length()
 
 
 def _row_abs_max(A: np.ndarray) -> int:

@@ -25,6 +25,8 @@ from __future__ import annotations
 from fractions import Fraction
 from math import gcd
 
+import numpy as np
+
 from builder.symbols.cusps import point_cusp_classes
 
 
@@ -34,37 +36,55 @@ def l_ratio(E) -> str:
     if E.d != 1 or S.k != 2:
         raise ValueError("l_ratio is defined for rational orbits of weight 2")
     P = S.P1
-    cls, keys = point_cusp_classes(P)
-    sigma = P.index(P.d, -P.c).tolist()
-    cls = cls.tolist()
     phi = E.rational_values()[: len(P)]  # weight 2: symbol index = point index
-    potential: dict[int, int] = {}
+    a, b, tree = _cycle_graph(S)
+    potential = np.zeros(int(max(a.max(), b.max())) + 1, dtype=phi.dtype)
+    for node, parent, j, s in tree:  # edge j goes b → a with value φ_j; s = +1 when node = b
+        # (then parent = a and φ_j = pot[a] − pot[b])
+        potential[node] = potential[parent] - s * phi[j]
+    # every edge off the forest closes one fundamental cycle: its value is its residual
+    resid = phi - (potential[a] - potential[b])
+    g = int(np.gcd.reduce(resid)) if resid.dtype != object else _gcd_all(resid)
+    if g == 0:
+        raise ArithmeticError("the eigen-functional vanishes on the integral cycles")
+    j0 = P.index_one(0, 1)
+    return str(Fraction(abs(int(phi[j0])), g))
+
+
+def _cycle_graph(S):
+    """The graph on cusp classes with one edge per Manin symbol (cached on the space): the
+    endpoints (a, b) of every edge and a spanning forest as (node, parent, edge, side)."""
+    cache = S.__dict__.get("_cycle_graph")
+    if cache is not None:
+        return cache
+    P = S.P1
+    cls, _ = point_cusp_classes(P)
+    a = cls
+    b = cls[P.index(P.d, -P.c)]
     adj: dict[int, list] = {}
-    for j in range(len(P)):
-        a, b = cls[j], cls[sigma[j]]
-        adj.setdefault(a, []).append((b, j, 1))
-        adj.setdefault(b, []).append((a, j, -1))
-    g = 0
-    tree_edges = set()
+    for j, (x, y) in enumerate(zip(a.tolist(), b.tolist(), strict=True)):
+        adj.setdefault(x, []).append((y, j, 1))
+        adj.setdefault(y, []).append((x, j, -1))
+    seen: set[int] = set()
+    tree = []
     for root in sorted(adj):
-        if root in potential:
+        if root in seen:
             continue
-        potential[root] = 0
+        seen.add(root)
         stack = [root]
         while stack:
             v = stack.pop()
             for u, j, s in adj[v]:
-                # edge j goes b → a with value φ_j; s = +1 when v = a
-                if u not in potential:
-                    potential[u] = potential[v] - s * phi[j]
-                    tree_edges.add(j)
+                if u not in seen:
+                    seen.add(u)
+                    tree.append((u, v, j, s))
                     stack.append(u)
-    for j in range(len(P)):
-        if j in tree_edges:
-            continue
-        a, b = cls[j], cls[sigma[j]]
-        g = gcd(g, phi[j] - (potential[a] - potential[b]))
-    if g == 0:
-        raise ArithmeticError("the eigen-functional vanishes on the integral cycles")
-    j0 = P.index_one(0, 1)
-    return str(Fraction(abs(phi[j0]), g))
+    S.__dict__["_cycle_graph"] = (a, b, tree)
+    return a, b, tree
+
+
+def _gcd_all(v) -> int:
+    g = 0
+    for x in v:
+        g = gcd(g, int(x))
+    return g

@@ -583,6 +583,8 @@ class SymbolSpace:
         symbols (continued fractions, [Ma]); their coordinates are summed with numpy.
         """
         A, B, C, D = self.atkin_lehner_matrix_for(Q)
+        if self.w == 0:
+            return self._atkin_lehner_weight2(A, B, C, D)
         adj = (D, -B, -C, A)
         rows, syms, coefs = [], [], []
         for f, x in enumerate(self.pres.free):
@@ -604,6 +606,21 @@ class SymbolSpace:
                              _as_int(np.array(coefs, dtype=object)), self.dim)
         scale = Q ** (self.w // 2)
         return QMat(M.num, M.den * scale).reduced() if scale != 1 else M
+
+    def _atkin_lehner_weight2(self, A: int, B: int, C: int, D: int) -> QMat:
+        """Weight 2: the same sum with every continued fraction expanded at once (numpy)."""
+        free = np.array(self.pres.free, dtype=np.int64)
+        c, d = self.P1.c[free], self.P1.d[free]
+        a, b = _complete_vec(c, d)
+        gens = np.arange(len(free), dtype=np.int64)
+        parts = [
+            _cf_terms(self.P1, A * a + B * c, C * a + D * c, gens, 1),
+            _cf_terms(self.P1, A * b + B * d, C * b + D * d, gens, -1),
+        ]
+        rows = np.concatenate([p[0] for p in parts])
+        syms = np.concatenate([p[1] for p in parts])
+        coefs = np.concatenate([p[2] for p in parts])
+        return self._accumulate(rows, syms, coefs, self.dim)
 
     @_per_instance
     def atkin_lehner_full_matrix(self, Q: int) -> flint.fmpq_mat:
@@ -732,6 +749,52 @@ def identity_fmpq(n: int) -> flint.fmpq_mat:
     for i in range(n):
         out[i, i] = 1
     return out
+
+
+def _complete_vec(c: np.ndarray, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(a, b) with a·d − b·c = 1 for coprime integer arrays (c, d), vectorised."""
+    from builder.symbols.heilbronn import _modinv
+
+    m = np.abs(c)
+    zero = m == 0
+    a = np.where(zero, d, _modinv(np.where(zero, 1, d), np.where(zero, 1, m)))
+    b = np.where(zero, 0, (a * d - 1) // np.where(zero, 1, c))
+    return a, b
+
+
+def _cf_terms(P1, u: np.ndarray, v: np.ndarray, gens: np.ndarray,
+              sgn: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Weight-2 Manin symbols of sgn·{0, u/v} for arrays of cusps u/v (any signs, any
+    common factor), as (generator, symbol index, coefficient) arrays: the terms of
+    SymbolSpace._from_zero_terms over consecutive convergents ([Ma], [Cr] §2.1)."""
+    neg = v < 0
+    u, v = np.where(neg, -u, u), np.where(neg, -v, v)
+    g = np.gcd(u, v)
+    g[g == 0] = 1
+    u, v = u // g, v // g
+    out_r, out_s = [], []
+    # the first pair of convergents, (0/1, 1/0): the matrix [[1, 0], [0, 1]], symbol (0:1)
+    out_r.append(gens)
+    out_s.append(P1.index(np.zeros_like(u), np.ones_like(u)))
+    act = v != 0
+    p0, q0 = np.zeros_like(u), np.ones_like(u)
+    p1, q1 = np.ones_like(u), np.zeros_like(u)
+    while np.any(act):
+        idx = np.nonzero(act)[0]
+        uu, vv = u[idx], v[idx]
+        q = uu // vv
+        u[idx], v[idx] = vv, uu - q * vv
+        np_, nq = q * p1[idx] + p0[idx], q * q1[idx] + q0[idx]
+        p0[idx], q0[idx] = p1[idx], q1[idx]
+        p1[idx], q1[idx] = np_, nq
+        det = p1[idx] * q0[idx] - p0[idx] * q1[idx]
+        cc = np.where(det == 1, q1[idx], -q1[idx])
+        out_r.append(gens[idx])
+        out_s.append(P1.index(cc, q0[idx]))
+        act = v != 0
+    rows = np.concatenate(out_r)
+    syms = np.concatenate(out_s)
+    return rows, syms, np.full(len(rows), sgn, dtype=np.int64)
 
 
 def _complete(c: int, d: int) -> tuple[int, int]:
