@@ -1,6 +1,6 @@
 """Benchmark: full newform records of weight 2 (issue 3), one core.
 
-For each level N (default 1000, 5000, 10000) a fresh subprocess computes the
+For each level N (default 1000, 5000, 10000, 10007) a fresh single-threaded subprocess computes the
 full record (traces to 1000, exact a_p to 100 for orbits of dim ≤ 20, all
 signs) step by step and reports the time of each step and the peak RSS.
 Usage:  python benchmarks/bench_forms.py [N ...] [--no-record]
@@ -27,7 +27,7 @@ SECTION = "## Newforms (issue 3)"
 def _one(N: int) -> dict:
     from builder.arith import primes_up_to
     from builder.forms import unit
-    from builder.forms.eigen import EigenForm
+    from builder.forms.eigen import EigenForm, eigen_system
     from builder.forms.newspace import NewSpace
     from builder.forms.record import Params
     from builder.symbols.heilbronn import hecke_matrices
@@ -42,27 +42,26 @@ def _one(N: int) -> dict:
     t0 = time.perf_counter()
     t = t0
     S = cuspidal_space(N, 2, 1)
-    steps["symbol space + cuspidal"] = time.perf_counter() - t
+    _ = S.coord_csr
+    steps["symbol space (presentation, coordinates)"] = time.perf_counter() - t
     t = time.perf_counter()
     V = NewSpace(S)
-    steps["new subspace"] = time.perf_counter() - t
+    steps["old-dual Ann(Old) (exact)"] = time.perf_counter() - t
     t = time.perf_counter()
     orbits = V.orbits()
-    steps["splitting"] = time.perf_counter() - t
+    steps["splitting (sign pieces, charpolys)"] = time.perf_counter() - t
     t = time.perf_counter()
     eigs = [EigenForm(V, o) for o in orbits]
-    steps["eigen-functionals"] = time.perf_counter() - t
+    traces = eigen_system(V).traces(params.trace_bound) if eigs else []
+    steps["eigen-functionals + traces a_n, n ≤ 1000"] = time.perf_counter() - t
     t = time.perf_counter()
-    traces = unit.all_traces(eigs, params.trace_bound)
-    steps["traces a_n, n ≤ 1000"] = time.perf_counter() - t
-    t = time.perf_counter()
-    for E, tr in zip(eigs, traces, strict=False):
+    for E, tr in zip(eigs, traces, strict=True):
         unit._orbit_data(E, tr, params)
-    steps["exact a_p, fields, CM, L (rest)"] = time.perf_counter() - t - 0.0
+    steps["exact a_p, fields, CM, L (rest)"] = time.perf_counter() - t
     total = time.perf_counter() - t0
     ru = resource.getrusage(resource.RUSAGE_SELF)
-    cpu = ru.ru_utime + ru.ru_stime - steps["heilbronn sets (once per process)"] * 0
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    cpu = ru.ru_utime + ru.ru_stime
+    rss = ru.ru_maxrss / 1024
     return {
         "N": N,
         "dim_new": V.dim,
@@ -80,13 +79,14 @@ def main(argv: list[str]) -> None:
         print(json.dumps(_one(int(argv[1]))))
         return
     record = "--no-record" not in argv
-    levels = [int(a) for a in argv if a.isdigit()] or [1000, 5000, 10000]
+    levels = [int(a) for a in argv if a.isdigit()] or [1000, 5000, 10000, 10007]
     results = []
     for N in levels:
         out = subprocess.run(
             [sys.executable, __file__, "--child", str(N)],
             capture_output=True, text=True, check=True,
-            env={**os.environ, "PYTHONHASHSEED": "0"},
+            env={**os.environ, "PYTHONHASHSEED": "0", "OPENBLAS_NUM_THREADS": "1",
+                 "OMP_NUM_THREADS": "1"},
         )
         r = json.loads(out.stdout.strip().splitlines()[-1])
         results.append(r)

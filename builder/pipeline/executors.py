@@ -59,10 +59,13 @@ def compute_task(unit: Unit, params: dict) -> Outcome:
     return Outcome(unit, rec, None, seconds)
 
 
+BLAS_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
 def _worker_init() -> None:
     # Ctrl-C goes to the whole process group: only the main process handles it.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    for var in BLAS_THREAD_VARS:
         os.environ.setdefault(var, "1")
     # If the main process dies (e.g. SIGKILL), do not keep computing for nobody.
     import threading
@@ -126,6 +129,10 @@ class PoolExecutor(Executor):
         self.workers = workers
         self.ahead = ahead or 2 * workers
         self._closed = False
+        # one BLAS thread per worker: the workers already fill the cores (set before the
+        # workers are spawned, since BLAS reads it when numpy is first imported)
+        for var in BLAS_THREAD_VARS:
+            os.environ.setdefault(var, "1")
         self.pool = ProcessPoolExecutor(
             max_workers=workers, mp_context=mp.get_context("spawn"), initializer=_worker_init
         )

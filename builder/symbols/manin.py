@@ -168,6 +168,9 @@ class ManinPresentation:
             else:
                 gen_expr.append({pos[h]: v for h, v in pivots[g].items()})
         self.free = [gen_symbol[g] for g in free_gens]
+        self.root_of = np.array(root_of, dtype=np.int64)  # symbol → generator (−1: zero)
+        self.root_sign = np.array(sgn, dtype=np.int64)  # symbol = sign · generator
+        self.gen_expr = gen_expr  # generator → {free position: coefficient}
         self._expr = []
         for x in range(self.nsym):
             g = root_of[x]

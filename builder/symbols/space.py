@@ -385,21 +385,28 @@ class SymbolSpace:
 
         (indptr, gen, num, den): coords(x) = {gen[t]: num[t]/den, indptr[x] ≤ t < indptr[x+1]}.
         """
+        pres = self.pres
+        if not hasattr(pres, "gen_expr"):  # odd weight: the zero space
+            return (np.zeros(pres.nsym + 1, dtype=np.int64), np.zeros(0, dtype=np.int64),
+                    np.zeros(0, dtype=np.int64), 1)
         den = 1
-        for x in range(self.pres.nsym):
-            for v in self.pres.coords(x).values():
+        for e in pres.gen_expr:
+            for v in e.values():
                 if isinstance(v, Fraction):
                     den = den * v.denominator // gcd(den, v.denominator)
-        indptr = np.zeros(self.pres.nsym + 1, dtype=np.int64)
-        gens: list[int] = []
-        nums: list[int] = []
-        for x in range(self.pres.nsym):
-            c = self.pres.coords(x)
-            indptr[x + 1] = indptr[x] + len(c)
-            for t, v in c.items():
-                gens.append(t)
-                nums.append(int(v * den))
-        return indptr, np.array(gens, dtype=np.int64), _as_int(np.array(nums, dtype=object)), den
+        # generators first (few), then every symbol = sign · its generator, with numpy
+        gcnt = np.array([len(e) for e in pres.gen_expr], dtype=np.int64)
+        gptr = np.concatenate([[0], np.cumsum(gcnt)])
+        ggen = np.array([t for e in pres.gen_expr for t in e], dtype=np.int64)
+        gnum = _as_int(np.array([int(v * den) for e in pres.gen_expr for v in e.values()],
+                                dtype=object))
+        root, sign = pres.root_of, pres.root_sign
+        cnt = np.where(root >= 0, gcnt[np.maximum(root, 0)], 0)
+        indptr = np.concatenate([[0], np.cumsum(cnt)])
+        src = np.repeat(gptr[np.maximum(root, 0)], cnt) + (
+            np.arange(int(indptr[-1])) - np.repeat(indptr[:-1], cnt))
+        sym_sign = np.repeat(sign, cnt)
+        return indptr, ggen[src], gnum[src] * sym_sign, den
 
     def coords_row(self, x: int) -> QMat:
         """Free coordinates of Manin symbol x as an exact 1 × dim matrix."""
