@@ -72,7 +72,15 @@ def run(
         None, metavar="[JOB.toml]", help="Job file (TOML); flags override its keys."
     ),
     levels: str | None = typer.Option(None, "--levels", help='Levels: "1-100", "37", "1-50,77".'),
-    weights: str | None = typer.Option(None, "--weights", help='Even weights: "2,4".'),
+    weights: str | None = typer.Option(
+        None, "--weights", help='Weights: "2,4" (odd ones need --characters other than trivial).'
+    ),
+    characters: str | None = typer.Option(
+        None,
+        "--characters",
+        help='Characters χ mod N: trivial (default), all, "order:1,2" or "index:0,3"; '
+        "only those with χ(−1) = (−1)^k are computed.",
+    ),
     out_dir: Path | None = typer.Option(
         None, "--out", help="Output directory (log, newforms.sqlite, parquet/). Default: output"
     ),
@@ -104,7 +112,7 @@ def run(
         "auto", "--progress", help="auto | bar | lines | none.", show_default=True
     ),
 ) -> None:
-    """Compute every unit (N, k) of the job not yet in the database; resume or extend."""
+    """Compute every unit (N, k, χ) of the job not yet in the database; resume or extend."""
     _sigint_to_interrupted()
     from builder.pipeline.jobs import load_job
     from builder.pipeline.run import run_job
@@ -112,6 +120,7 @@ def run(
     overrides = {
         "levels": levels,
         "weights": weights,
+        "characters": characters,
         "out": str(out_dir) if out_dir is not None else None,
         "db": db,
         "workers": workers,
@@ -188,13 +197,18 @@ def status(
         if job_file is not None:
             plan = plan_job(job, extend=True)
             missing = plan.todo
+            chars = "" if job.characters.is_trivial else f" (characters {job.characters.spec})"
+            nontrivial = sum(1 for u in missing if u[2])
             out.print(
-                f"job {job_file}: {plan.skipped} units done, {len(missing)} to compute"
+                f"job {job_file}{chars}: {plan.skipped} units done, {len(missing)} to compute"
                 + (
-                    f" (levels {compress_levels(sorted({u[0] for u in missing}))})"
+                    f" (levels {compress_levels(sorted({u[0] for u in missing}))}"
+                    + (f"; {nontrivial} with a nontrivial character" if nontrivial else "")
+                    + ")"
                     if missing
                     else ""
-                )
+                ),
+                markup=False,
             )
     except (NfbError, Interrupted) as e:
         _fail(e)
@@ -262,15 +276,25 @@ def show(
             f"[bold]{nf['label']}[/bold]  level {nf['level']}, weight {nf['weight']}, "
             f"orbit {nf['orbit']}"
         )
+        if nf["char_index"]:
+            out.print(
+                f"  character orbit {nf['char_index']}: order {space['char_order']}, "
+                f"conductor {space['char_conductor']}, "
+                f"{'even' if space['char_parity'] > 0 else 'odd'}, representative number "
+                f"{space['char_number']}; relative dimension over Q(χ) {nf['rel_dim']}"
+            )
         out.print(f"  dimension {nf['dim']}; field polynomial (constant first) {nf['field_poly']}")
         disc = nf["field_disc"] if nf["field_disc"] is not None else "(not kept: dim > dim_cap)"
         out.print(f"  field discriminant {disc}")
         pairs = zip(nf["al_primes"], nf["al_signs"], strict=True)
         signs = ", ".join(f"W_{p}: {'+' if s > 0 else '-'}1" for p, s in pairs)
-        out.print(
-            f"  Atkin–Lehner {signs or '(none)'}; Fricke {nf['fricke_sign']:+d}; "
-            f"root number {nf['root_number']:+d}"
-        )
+        if nf["fricke_sign"] is None:
+            out.print("  Atkin–Lehner, Fricke, root number: not recorded for a nontrivial χ")
+        else:
+            out.print(
+                f"  Atkin–Lehner {signs or '(none)'}; Fricke {nf['fricke_sign']:+d}; "
+                f"root number {nf['root_number']:+d}"
+            )
         cm = f"yes, discriminant {nf['cm_disc']}" if nf["is_cm"] else "no"
         out.print(
             f"  CM: {cm}; L-value zero: {nf['lvalue_zero']}; L-ratio {nf['l_ratio']}",

@@ -1,4 +1,4 @@
--- nfb database schema, version 2, postgresql dialect.
+-- nfb database schema, version 3, postgresql dialect.
 -- GENERATED from builder/storage/models.py by `python -m builder.storage.models`;
 -- do not edit by hand (tests/test_schema.py checks that it is in sync).
 -- Column meanings: schema/README.md.
@@ -29,6 +29,11 @@ CREATE TABLE spaces (
 	level INTEGER NOT NULL,
 	weight INTEGER NOT NULL,
 	char_index INTEGER NOT NULL,
+	char_order INTEGER NOT NULL,
+	char_conductor INTEGER NOT NULL,
+	char_parity INTEGER NOT NULL,
+	char_number INTEGER NOT NULL,
+	char_degree INTEGER NOT NULL,
 	status VARCHAR(16) NOT NULL,
 	dim_cusp INTEGER,
 	dim_new INTEGER,
@@ -49,6 +54,8 @@ CREATE TABLE spaces (
 	FOREIGN KEY(run_id) REFERENCES runs (id)
 );
 
+CREATE INDEX ix_spaces_char_order ON spaces (char_order);
+
 CREATE INDEX ix_spaces_dim_new ON spaces (dim_new);
 
 CREATE INDEX ix_spaces_status ON spaces (status);
@@ -60,16 +67,18 @@ CREATE TABLE newforms (
 	level INTEGER NOT NULL,
 	weight INTEGER NOT NULL,
 	char_index INTEGER NOT NULL,
+	char_order INTEGER NOT NULL,
 	orbit INTEGER NOT NULL,
 	dim INTEGER NOT NULL,
+	rel_dim INTEGER NOT NULL,
 	field_poly JSON NOT NULL,
 	field_disc TEXT,
 	traces JSON NOT NULL,
 	al_primes JSON NOT NULL,
 	al_signs JSON NOT NULL,
 	al_pattern VARCHAR(255) NOT NULL,
-	fricke_sign INTEGER NOT NULL,
-	root_number INTEGER NOT NULL,
+	fricke_sign INTEGER,
+	root_number INTEGER,
 	is_cm BOOLEAN NOT NULL,
 	cm_disc BIGINT,
 	lvalue_zero BOOLEAN,
@@ -82,6 +91,8 @@ CREATE TABLE newforms (
 );
 
 CREATE INDEX ix_newforms_al_pattern ON newforms (al_pattern);
+
+CREATE INDEX ix_newforms_char_order ON newforms (char_order);
 
 CREATE INDEX ix_newforms_dim ON newforms (dim);
 

@@ -49,6 +49,46 @@ def small_table(tmp_path_factory) -> Path:
     return _BUILT["small"]
 
 
+# A small REAL table with characters: every character orbit (builder/characters.py) of
+# these (level, weight) units, stored through the Writer and exported. Odd weights have
+# newforms only for odd characters; 13w2c4 (order 6), 13w4c2 (order 3, two orbits),
+# 16w3c4 (order 4, an orbit of dimension 6 = 2 · 3) and the zero spaces of the other
+# orbits. Everything computes in a few seconds.
+CHAR_PARAMS = {"trace_bound": 40, "ap_bound": 20, "dim_cap": 6}
+CHAR_UNITS = [(7, 3), (11, 2), (13, 2), (13, 4), (16, 3), (21, 2)]
+
+
+def build_char_table(out: Path) -> Path:
+    """Compute every character unit of CHAR_UNITS, commit, export (OUT/newforms.sqlite,
+    OUT/parquet), like a run would."""
+    from builder.characters import character_orbits
+    from builder.forms.record import Params, compute_unit
+    from builder.storage.db import init_schema, make_engine
+    from builder.storage.parquet import export
+    from builder.storage.writer import Writer
+
+    out.mkdir(parents=True, exist_ok=True)
+    params = Params(**CHAR_PARAMS)
+    engine = make_engine(f"sqlite:///{out / 'newforms.sqlite'}")
+    try:
+        init_schema(engine, params)
+        w = Writer(engine)
+        for N, k in CHAR_UNITS:
+            for chi in character_orbits(N):
+                w.commit(compute_unit(N, k, params, char_index=chi.index))
+        export(engine, out / "parquet")
+    finally:
+        engine.dispose()
+    return out
+
+
+def char_table(tmp_path_factory) -> Path:
+    """The table with characters, built once per test session; tests must not change it."""
+    if "char" not in _BUILT:
+        _BUILT["char"] = build_char_table(tmp_path_factory.mktemp("tables") / "char")
+    return _BUILT["char"]
+
+
 def read_export(out: Path):
     """The table straight from its Parquet export with plain pandas (the tests' reference)."""
     import pandas as pd

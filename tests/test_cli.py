@@ -64,6 +64,8 @@ BAD = [
         "below ap_bound",
     ),
     ('levels = "1-10"\nweights = [2\n', None, "malformed TOML"),
+    ('levels = "1-10"\nweights = [2]\ncharacters = "odd"\n', "characters", "cannot read"),
+    ('levels = "1-10"\nweights = [3]\ncharacters = "order:3"\n', "weights", "odd order"),
 ]
 
 
@@ -87,6 +89,10 @@ def test_bad_job_file_exit_2_nothing_written(tmp_path, text, key, problem):
         (["--levels", "1-5", "--weights", "3"], "--weights", "odd"),
         (["--levels", "1-5", "--weights", "2", "--trace-bound", "0"], "--trace-bound", "minimum"),
         (["--levels", "1-5", "--weights", "2", "--db", "oracle://x"], "--db", "unsupported"),
+        (["--levels", "1-5", "--weights", "2", "--characters", "some"], "--characters", "read"),
+        (["--levels", "1-5", "--weights", "2", "--characters", "order:0"], "--characters", "min"),
+        (["--levels", "1-2", "--weights", "3", "--characters", "all"], "--characters", "no unit"),
+        (["--levels", "1-5", "--weights", "2,3"], "--weights", "trivial character"),
     ],
 )
 def test_bad_flags_exit_2(tmp_path, flags, key, problem):
@@ -277,3 +283,47 @@ def test_full_disk_during_export_exit_3(tmp_path, built, monkeypatch):
     assert res.exit_code == 3 and "disk is full" in res.output and "intact" in res.output
     monkeypatch.undo()
     assert snapshot(sqlite_url(built)) == before
+
+
+def test_characters_dry_run_and_status(tmp_path, built):
+    r = runner.invoke(
+        app,
+        [
+            "run",
+            "--levels",
+            "11-13",
+            "--weights",
+            "2,3",
+            "--characters",
+            "all",
+            "--out",
+            str(tmp_path / "o"),
+            "--dry-run",
+        ],
+    )
+    assert r.exit_code == 0, r.output
+    assert "characters all" in r.output and "14 to compute" in r.output
+    assert "weight 3: 6 units (0 trivial χ, 6 nontrivial χ)" in r.output
+    assert not (tmp_path / "o").exists()
+    # status with a job file that selects characters: what is done, what is missing
+    job = tmp_path / "chars.toml"
+    job.write_text(
+        'levels = "1-14"\nweights = [2]\ncharacters = { order = [1, 2] }\n'
+        "trace_bound = 40\nap_bound = 20\ndim_cap = 6\n"
+    )
+    r = runner.invoke(app, ["status", str(job), "--out", str(built)])
+    assert r.exit_code == 0, r.output
+    assert "(characters order:1,2): 14 units done, 5 to compute" in r.output
+    assert "5 with a nontrivial character" in r.output
+
+
+def test_show_a_newform_with_character(tmp_path_factory):
+    """`nfb show` of an orbit with a nontrivial character names the character and says
+    that the signs are not recorded (they are not ±1 for χ ≠ 1; schema/README.md)."""
+    from tests.tables_helpers import char_table
+
+    out = char_table(tmp_path_factory)
+    r = run_nfb("show", "13w2c4-1", "--out", out)
+    assert r.returncode == 0, r.stderr
+    assert "character orbit 4: order 6, conductor 13, even" in r.stdout
+    assert "not recorded for a nontrivial χ" in r.stdout

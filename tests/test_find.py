@@ -22,7 +22,7 @@ from builder.tables.api import Table
 from builder.tables.find import Filters, find
 from builder.tables.source import open_source
 from tests.nfb_helpers import run_nfb
-from tests.tables_helpers import read_export, small_table
+from tests.tables_helpers import char_table, read_export, small_table
 
 
 @pytest.fixture(scope="module")
@@ -250,3 +250,139 @@ def test_readme_examples_on_the_quickstart_output():
 def test_help(cmd):
     r = run_nfb(cmd, "--help")
     assert r.returncode == 0 and "Usage" in r.stdout
+
+
+# ----------------------------------------------------------------------------- characters
+
+
+@pytest.fixture(scope="module")
+def char_tab(tmp_path_factory):
+    return char_table(tmp_path_factory)
+
+
+@pytest.fixture(scope="module")
+def char_ref(char_tab):
+    return read_export(char_tab)
+
+
+def _unit(sp, r):
+    return sp[(sp.level == r.level) & (sp.weight == r.weight)
+              & (sp.char_index == r.char_index)].iloc[0]  # fmt: skip
+
+
+def _ap_range_ref(r, ev, p, lo, hi):
+    """The documented meaning of an a_p range: every embedding real and in [lo, hi]
+    (decided for totally real K_f); for other fields only a rational a_p can match."""
+    c = _ap_value(ev, r.label, p)
+    if c is None:
+        return False
+    roots = np.roots(list(reversed([float(x) for x in r.field_poly])))
+    if all(abs(z.imag) < 1e-9 for z in roots):
+        return all(lo <= v <= hi for v in _embeddings(r.field_poly, c))
+    return all(Fraction(x) == 0 for x in c[1:]) and lo <= Fraction(c[0]) <= hi
+
+
+# (filters, pandas reference predicate on (row, spaces, eigenvalues))
+CHAR_CASES = {
+    "order 2": (dict(char_order=2), lambda r, sp, ev: r.char_order == 2),
+    "order 3..": (dict(char_order="3.."), lambda r, sp, ev: r.char_order >= 3),
+    "trivial": (dict(trivial_char=True), lambda r, sp, ev: r.char_order == 1),
+    "nontrivial weight 4": (
+        dict(trivial_char=False, weight=4),
+        lambda r, sp, ev: r.char_order > 1 and r.weight == 4,
+    ),
+    "index 1-2": (dict(char_index="1-2"), lambda r, sp, ev: 1 <= r.char_index <= 2),
+    "conductor 13": (dict(char_conductor=13), lambda r, sp, ev: _unit(sp, r).char_conductor == 13),
+    "conductor 3..7, order 2": (
+        dict(conductor=(3, 7), char_order=2),
+        lambda r, sp, ev: 3 <= _unit(sp, r).char_conductor <= 7 and r.char_order == 2,
+    ),
+    "odd": (dict(char_parity="odd"), lambda r, sp, ev: _unit(sp, r).char_parity == -1),
+    "even nontrivial": (
+        dict(char_parity=1, trivial_char=False),
+        lambda r, sp, ev: _unit(sp, r).char_parity == 1 and r.char_order > 1,
+    ),
+    "rel_dim 2": (dict(rel_dim=2), lambda r, sp, ev: r.rel_dim == 2),
+    "dim 2 rel_dim 1": (dict(dim=2, rel_dim=1), lambda r, sp, ev: r.dim == 2 and r.rel_dim == 1),
+    # NULL for a nontrivial character: never matches
+    "fricke -1": (dict(fricke=-1), lambda r, sp, ev: r.fricke_sign == -1),
+    "root number +1": (dict(root_number=1), lambda r, sp, ev: r.root_number == 1),
+    "lzero false": (dict(lzero=False), lambda r, sp, ev: r.lvalue_zero is False),
+    "CM nontrivial": (dict(cm=True, trivial_char=False), lambda r, sp, ev: bool(r.is_cm)
+                      and r.char_order > 1),  # fmt: skip
+    "a_2 = 0": (
+        dict(ap={2: 0}),
+        lambda r, sp, ev: (c := _ap_value(ev, r.label, 2)) is not None
+        and all(Fraction(x) == 0 for x in c),
+    ),
+    "a_5 in -6..6": (
+        dict(ap={5: (-6, 6)}),
+        lambda r, sp, ev: _ap_range_ref(r, ev, 5, -6, 6),
+    ),
+    "trace 2 ≤ -1, nontrivial": (
+        dict(trace={2: (None, -1)}, trivial_char=False),
+        lambda r, sp, ev: r.traces[1] <= -1 and r.char_order > 1,
+    ),
+}
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "parquet"])
+def test_find_characters_matches_pandas(char_tab, char_ref, kind):
+    sp, nf, ev = char_ref
+    src = open_source(char_tab) if kind == "sqlite" else open_source(parquet=char_tab / "parquet")
+    with src:
+        for case, (filters, pred) in CHAR_CASES.items():
+            want = nf[[bool(pred(r, sp, ev)) for r in nf.itertuples()]]
+            want = want.sort_values(["level", "weight", "char_index", "orbit"])["label"].tolist()
+            got = find(src, Filters.from_kwargs(**filters))
+            assert got["label"].tolist() == want, case
+
+
+def test_character_cases_are_not_trivial(char_ref):
+    sp, nf, ev = char_ref
+    sizes = {
+        c: sum(bool(p(r, sp, ev)) for r in nf.itertuples()) for c, (_, p) in CHAR_CASES.items()
+    }
+    assert all(0 < n < len(nf) for n in sizes.values()), sizes
+    # the sign conditions only ever see trivial-character orbits
+    assert sizes["fricke -1"] + sizes["root number +1"] <= (nf.char_order == 1).sum() * 2
+
+
+def test_find_character_columns(char_tab):
+    with Table(char_tab) as t:
+        df = t.newforms(columns="default", level=13, weight=2)
+        assert df["label"].tolist() == ["13w2c4-1"]
+        row = df.iloc[0]
+        assert (row["char_order"], row["dim"], row["rel_dim"]) == (6, 2, 1)
+        assert row["fricke_sign"] is None or np.isnan(row["fricke_sign"])
+        sp = t.spaces(char_order="2..")
+        assert len(sp) and (sp["char_order"] >= 2).all()
+        assert {"char_conductor", "char_parity", "char_number", "char_degree"} <= set(sp.columns)
+        assert t.spaces(level=13, char_order=6)["char_index"].tolist() == [4, 4]
+    with pytest.raises(BadInput, match="parity"):
+        Filters.from_kwargs(char_parity=3)
+
+
+def test_cli_find_character_flags(char_tab, char_ref):
+    sp, nf, _ = char_ref
+    r = run_nfb("find", "--out", char_tab, "--char-order", "2..", "--char-parity", "odd",
+                "--format", "json")  # fmt: skip
+    assert r.returncode == 0, r.stderr
+    docs = json.loads(r.stdout)
+    odd = {(u.level, u.weight, u.char_index) for u in sp.itertuples() if u.char_parity == -1}
+    want = nf[[(x.level, x.weight, x.char_index) in odd and x.char_order > 1
+               for x in nf.itertuples()]]  # fmt: skip
+    assert sorted(d["label"] for d in docs) == sorted(want["label"])
+    assert all(d["fricke_sign"] is None and d["char_order"] > 1 for d in docs)
+    r = run_nfb("find", "--parquet", char_tab / "parquet", "--conductor", "13",
+                "--nontrivial-char", "--char-index", "2", "--format", "csv")  # fmt: skip
+    assert r.returncode == 0, r.stderr
+    rows = list(csv.DictReader(io.StringIO(r.stdout)))
+    assert [x["label"] for x in rows] == ["13w4c2-1", "13w4c2-2"]
+    r = run_nfb("find", "--out", char_tab, "--trivial-char", "--rel-dim", "1", "--limit", "0")
+    assert r.returncode == 0, r.stderr
+    assert "11w2-1" in r.stdout and "c" not in "".join(re.findall(r"\b\d+w\d+\S*-\d+", r.stdout))
+    r = run_nfb("find", "--out", char_tab, "--char-parity", "sideways")
+    assert r.returncode == 2 and "--char-parity" in r.stderr
+    r = run_nfb("find", "--out", char_tab, "--char-order", "5..2")
+    assert r.returncode == 2 and "--char-order" in r.stderr

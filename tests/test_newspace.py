@@ -95,13 +95,16 @@ def test_weight2_new_dimension_and_orbits_up_to_500():
         orbits = V.orbits()
         assert sum(orb.dim for orb in orbits) == V.dim, N
         for orb in orbits:
-            # the proof of irreducibility: an irreducible charpoly of degree d, from T_q with
-            # q ∤ N and q ≤ Sturm bound (or the first good prime when the bound is smaller)
+            # the proof of irreducibility: an irreducible charpoly of degree d, from T_q (or
+            # a combination Σ c·T_q) with q ∤ N and q ≤ Sturm bound (or the first good prime
+            # when the bound is smaller)
             assert orb.poly.degree() == orb.dim
             _, facs = orb.poly.factor()
             assert len(facs) == 1 and facs[0][1] == 1, (N, orb.poly)
-            assert N % orb.prime and len(factorize(orb.prime)) == 1 and orb.prime > 1
-            assert orb.prime <= max(k_sturm(N, 2), first_good_prime(N)), N
+            qs = [orb.prime] if isinstance(orb.prime, int) else [q for q, _ in orb.prime]
+            for q in qs:
+                assert N % q and len(factorize(q)) == 1 and q > 1
+                assert q <= max(k_sturm(N, 2), first_good_prime(N)), N
             assert sorted(orb.signs) == sorted(factorize(N))
 
 
@@ -154,7 +157,10 @@ def test_orbits_are_hecke_stable_irreducible_pieces(N, k):
     systems = set()
     for orb in orbits:
         # proof of irreducibility: charpoly of T_q on the piece is the stored irreducible poly
-        X = restricted(orb.basis, V.hecke(orb.prime))
+        q = orb.prime  # T_q, or a combination ((q, c), …) of them
+        T = V.hecke(q) if isinstance(q, int) else sum((V.hecke(p) * c for p, c in q[1:]),
+                                                      V.hecke(q[0][0]) * q[0][1])
+        X = restricted(orb.basis, T)
         cp = X.charpoly()
         assert [int(c) for c in cp.coeffs()] == [int(c) for c in orb.poly.coeffs()]
         # each piece is an Atkin–Lehner eigenspace with the stored signs ([AL]: W_Q ↔ T_n commute)

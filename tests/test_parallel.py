@@ -1,8 +1,9 @@
 """Serial, --workers 2 and a real Dask cluster give byte-identical Parquet.
 
-Levels ≤ 60, weights 2 and 4 (small bounds to keep the test quick). The Dask
-cluster is a real `dask scheduler` and two `dask worker` processes on
-127.0.0.1, started from the installed dask CLI by tests/nfb_services.py.
+Levels ≤ 60, weights 2 and 4 (small bounds to keep the test quick), and a job
+with every character (levels 11-20, weights 2 and 3). The Dask cluster is a
+real `dask scheduler` and two `dask worker` processes on 127.0.0.1, started
+from the installed dask CLI by tests/nfb_services.py.
 
 The runs' own exports must agree byte for byte on newforms and eigenvalues;
 spaces carries the measured `seconds`, so it is compared after
@@ -90,3 +91,46 @@ def test_dask_unreachable_is_bad_input(tmp_path):
     assert r.returncode == 2, r.stderr
     assert "--dask" in r.stderr and "cannot reach the Dask scheduler" in r.stderr
     assert not out.exists()
+
+
+CHAR_FLAGS = [
+    "--levels",
+    "11-20",
+    "--weights",
+    "2,3",
+    "--characters",
+    "all",
+    "--trace-bound",
+    "40",
+    "--ap-bound",
+    "20",
+    "--dim-cap",
+    "6",
+    "--progress",
+    "none",
+]
+
+
+@pytest.fixture(scope="module")
+def char_serial(tmp_path_factory):
+    out = tmp_path_factory.mktemp("char_serial") / "out"
+    r = run_nfb("run", *CHAR_FLAGS, "--out", out)
+    assert r.returncode == 0, r.stderr
+    r = run_nfb("export", "--out", out, "--to", out / "notimes", "--no-timings")
+    assert r.returncode == 0, r.stderr
+    return out
+
+
+def test_characters_workers_2(tmp_path, char_serial):
+    out = tmp_path / "out"
+    r = run_nfb("run", *CHAR_FLAGS, "--out", out, "--workers", "2")
+    assert r.returncode == 0, r.stderr
+    check_same(out, char_serial)
+    assert any(c for _, _, c in snapshot(sqlite_url(out))["spaces"])
+
+
+def test_characters_dask_cluster(tmp_path, char_serial, dask_cluster):  # noqa: F811
+    out = tmp_path / "out"
+    r = run_nfb("run", *CHAR_FLAGS, "--out", out, "--dask", dask_cluster)
+    assert r.returncode == 0, r.stderr
+    check_same(out, char_serial)

@@ -126,3 +126,71 @@ def test_full_disk_during_export_leaves_previous_export(tmp_path, records, monke
     leftovers = [p.name for p in (tmp_path / "p").rglob(".*")]
     assert leftovers == []
     engine.dispose()
+
+
+# ----------------------------------------------------------------------------- characters
+
+# every character orbit of 13w2 (orders 1, 2, 3, 4, 6, 12), 16w3 and 13w4 (see
+# tests/tables_helpers.py for what they hold)
+CHAR_UNITS = [(13, 2), (16, 3), (13, 4)]
+
+
+@pytest.fixture(scope="module")
+def char_records():
+    from builder.characters import character_orbits
+
+    return [
+        compute_unit(N, k, PARAMS, char_index=chi.index)
+        for N, k in CHAR_UNITS
+        for chi in character_orbits(N)
+    ]
+
+
+def test_character_columns(tmp_path, char_records):
+    engine = build(tmp_path, "c", char_records, order_seed=3)
+    res = export(engine, tmp_path / "p")
+    for name, schema in SCHEMAS.items():
+        assert pq.read_table(res.paths()[name]).schema.remove_metadata() == schema, name
+    sp = pd.read_parquet(tmp_path / "p" / "spaces")
+    nf = pd.read_parquet(tmp_path / "p" / "newforms")
+    assert len(sp) == len(char_records)
+    keys = list(zip(sp["weight"], sp["level"], sp["char_index"], strict=True))
+    assert keys == sorted(keys)
+    by_unit = {(r.level, r.weight, r.char_index): r for r in char_records}
+    for r in sp.itertuples():
+        rec = by_unit[(r.level, r.weight, r.char_index)]
+        assert (r.char_order, r.char_conductor, r.char_parity, r.char_number,
+                r.char_degree) == (rec.char_order, rec.char_conductor, rec.char_parity,
+                                   rec.char_number, rec.char_degree)  # fmt: skip
+        forms = nf[(nf.level == r.level) & (nf.weight == r.weight)
+                   & (nf.char_index == r.char_index)]  # fmt: skip
+        # the record contract: Σ orbit dims (absolute) = char_degree · dim_new (over Q(χ))
+        assert int(forms["dim"].sum()) == r.char_degree * r.dim_new
+        assert int(forms["rel_dim"].sum()) == r.dim_new
+        assert (forms["char_order"] == r.char_order).all()
+    keys = list(zip(nf["weight"], nf["level"], nf["char_index"], nf["orbit"], strict=True))
+    assert keys == sorted(keys)
+    triv, chars = nf[nf.char_index == 0], nf[nf.char_index > 0]
+    assert len(chars) >= 4 and set(chars["char_order"]) >= {3, 4, 6}
+    assert chars["fricke_sign"].isna().all() and chars["root_number"].isna().all()
+    assert chars["lvalue_zero"].isna().all() and chars["l_ratio"].isna().all()
+    assert all(len(p) == 0 for p in chars["al_primes"])
+    assert triv["fricke_sign"].notna().all() and (triv["rel_dim"] == triv["dim"]).all()
+    # odd weight: only odd characters have newforms (χ(−1) = (−1)^k, a standard fact)
+    odd = sp[sp.weight == 3]
+    assert (odd[odd.char_parity == 1]["dim_new"] == 0).all()
+    assert (odd[odd.char_parity == -1]["dim_new"] > 0).any()
+    ev = pd.read_parquet(tmp_path / "p" / "eigenvalues")
+    c = ev[ev.label == "13w2c4-1"]
+    assert len(c) and all(len(x) == 2 for x in c["coords"])  # a_p ∈ Q(ζ_3), power basis
+    engine.dispose()
+
+
+def test_character_export_is_deterministic(tmp_path, char_records):
+    e1 = build(tmp_path, "a", char_records)
+    e2 = build(tmp_path, "b", char_records, order_seed=11)
+    export(e1, tmp_path / "pa", timings=False)
+    export(e2, tmp_path / "pb", timings=False)
+    assert parquet_bytes(tmp_path / "pa") == parquet_bytes(tmp_path / "pb")
+    e1.dispose()
+    e2.dispose()

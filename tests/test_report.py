@@ -19,7 +19,13 @@ import pytest
 
 from builder.checks import formulas as F
 from tests.nfb_helpers import run_nfb
-from tests.tables_helpers import chromium_run, need_chromium, read_export, small_table
+from tests.tables_helpers import (
+    char_table,
+    chromium_run,
+    need_chromium,
+    read_export,
+    small_table,
+)
 
 N_PLOTS = 5
 
@@ -214,3 +220,44 @@ def test_report_renders_in_chromium(report, tmp_path):
 def test_report_bad_input(tmp_path):
     r = run_nfb("report", tmp_path / "nothing")
     assert r.returncode == 2 and "no nfb table here" in r.stderr
+
+
+# ----------------------------------------------------------------------------- characters
+
+
+@pytest.mark.parametrize("kind", ["sqlite", "parquet"])
+def test_report_with_characters(tmp_path_factory, tmp_path, kind):
+    """A table with nontrivial characters (null Fricke signs and root numbers, empty
+    Atkin–Lehner signs, odd weight): the page is written, and its per-character-order
+    table and summary agree with plain pandas on the export."""
+    table = char_table(tmp_path_factory)
+    where = ["--parquet", table / "parquet"] if kind == "parquet" else [table]
+    to = tmp_path / "report.html"
+    r = run_nfb("report", *where, "--to", to)
+    assert r.returncode == 0, r.stdout + r.stderr
+    p = _parse(to.read_text(encoding="utf-8"))
+    assert len(p.imgs) == N_PLOTS and p.refs == []
+    sp, nf, _ = read_export(table)
+    cells = p.cells
+    for k in sorted(set(sp.weight)):
+        s, f = sp[sp.weight == k], nf[nf.weight == k]
+        assert cells[f"w{k}.units"] == str(len(s))
+        assert cells[f"w{k}.char_units"] == str(int((s.char_order > 1).sum()))
+        assert cells[f"w{k}.char_orbits"] == str(int((f.char_order > 1).sum()))
+        # Σ orbit dims (absolute) = Σ char_degree · dim_new (record contract, per unit)
+        assert cells[f"w{k}.newforms"] == cells[f"w{k}.dim_new"] == str(int(f.dim.sum()))
+        # the stored dims agree with the formulas: [DS]/[Mt] for χ = 1, Cohen–Oesterlé and
+        # Martin's newform count for the characters (builder/checks/char_formulas.py)
+        assert cells[f"w{k}.units_matching_formulas"] == str(len(s))
+        assert cells[f"w{k}.fricke_plus_forms"] == str(int(f[f.fricke_sign == 1].dim.sum()))
+        assert cells[f"w{k}.root_minus_orbits"] == str(int((f.root_number == -1).sum()))
+        for m in sorted(set(s.char_order)):
+            sm, fm = s[s.char_order == m], f[f.char_order == m]
+            assert cells[f"w{k}.char.{m}.units"] == str(len(sm))
+            assert cells[f"w{k}.char.{m}.nonzero_units"] == str(int((sm.dim_new > 0).sum()))
+            assert cells[f"w{k}.char.{m}.orbits"] == str(len(fm))
+            assert cells[f"w{k}.char.{m}.forms"] == str(int(fm.dim.sum()))
+    data = json.loads(p.json_text)
+    assert data["per_weight"]["3"]["char_orders"]["4"] == {
+        "units": 2, "nonzero_units": 1, "orbits": 1, "forms": 6,  # 16w3c4-1: dim 6 = 2 · 3
+    }  # fmt: skip

@@ -138,3 +138,38 @@ def test_sigint_exits_130_and_resumes(tmp_path, reference, workers):
     assert db_rows(out, "select status from runs") == [("interrupted",)]
     assert db_rows(out, "pragma integrity_check") == [("ok",)]
     rerun_and_compare(out, reference)
+
+
+CHAR_FLAGS = [
+    "--levels",
+    "11-13",
+    "--weights",
+    "2,3",
+    "--characters",
+    "all",
+    "--trace-bound",
+    "40",
+    "--ap-bound",
+    "20",
+    "--dim-cap",
+    "6",
+]
+
+
+def test_sigkill_mid_character_unit(tmp_path):
+    """Resume keys on (N, k, j): a unit with a character killed mid-computation is redone."""
+    ref = tmp_path / "ref"
+    assert run_nfb("run", *CHAR_FLAGS, "--out", ref).returncode == 0
+    out = tmp_path / "out"
+    p = start_nfb("run", *CHAR_FLAGS, "--out", out, env={"NFB_TEST_UNIT_SLEEP": "13,2,2,60"})
+    wait_for_log(out / "nfb.log", "stored 13w2c1", p)
+    time.sleep(0.3)  # now inside unit 13w2c2
+    kill(p)
+    done = db_rows(out, "select level, weight, char_index from spaces")
+    assert sorted(done) == [(11, 2, 0), (11, 2, 2), (12, 2, 0), (12, 2, 3), (13, 2, 0), (13, 2, 1)]
+    r = run_nfb("run", *CHAR_FLAGS, "--out", out)
+    assert r.returncode == 0, r.stderr
+    assert "8 units to compute (6 already done)" in r.stderr
+    assert snapshot(sqlite_url(out)) == snapshot(sqlite_url(ref))
+    got, want = parquet_bytes(out / "parquet"), parquet_bytes(ref / "parquet")
+    assert got["newforms"] == want["newforms"] and got["eigenvalues"] == want["eigenvalues"]

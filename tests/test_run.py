@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import io
 from dataclasses import asdict
 
 import pytest
+from rich.console import Console
 
 from builder.pipeline.errors import BadInput, UnitsFailed
 from builder.pipeline.executors import Executor, Outcome, SerialExecutor
@@ -213,3 +215,131 @@ def test_every_stored_unit_round_trips(reference):
     for (N, k, c), (_, digest) in reference["snap"]["spaces"].items():
         assert load_space(engine, N, k, c).content_hash() == digest, (N, k)
     engine.dispose()
+
+
+# ----------------------------------------------------------------------------- characters
+
+CHARS = {
+    "levels": "11-13",
+    "weights": "2,3",
+    "characters": "all",
+    "trace_bound": 50,
+    "ap_bound": 20,
+}
+
+
+@pytest.fixture(scope="module")
+def with_characters(tmp_path_factory):
+    """A tiny run with every character (levels 11-13, weights 2 and 3)."""
+    d = tmp_path_factory.mktemp("chars")
+    job = load_job(None, {**CHARS, "out": str(d / "out")})
+    plan = plan_job(job)
+    summary = run_job(job, progress="none")
+    return {"job": job, "plan": plan, "summary": summary, "snap": snapshot(job.db_url)}
+
+
+def test_character_plan(with_characters):
+    plan, job = with_characters["plan"], with_characters["job"]
+    # even weight: the even orbits (13: orders 1, 2, 3, 6); odd weight: the odd ones only
+    assert plan.todo == job.units() == [
+        (11, 2, 0), (11, 2, 2), (12, 2, 0), (12, 2, 3), (13, 2, 0), (13, 2, 1), (13, 2, 2),
+        (13, 2, 4), (11, 3, 1), (11, 3, 3), (12, 3, 1), (12, 3, 2), (13, 3, 3), (13, 3, 5),
+    ]  # fmt: skip
+    assert plan.total == 14 and plan.skipped == 0
+    assert "default model" in plan.model.source
+    assert all(plan.estimates[u] > 0 for u in plan.todo)
+
+
+def test_character_run_stores_every_unit(with_characters):
+    import sqlite3
+
+    from builder.characters import character_orbits
+
+    s, job, snap = with_characters["summary"], with_characters["job"], with_characters["snap"]
+    assert s.status == "done" and s.computed == 14 and not s.failed
+    assert sorted(snap["spaces"]) == sorted(job.units())
+    assert all(st == "done" for st, _ in snap["spaces"].values())
+    con = sqlite3.connect(job.out / "newforms.sqlite")
+    try:
+        rows = con.execute(
+            "select level, weight, char_index, char_order, char_parity, char_conductor from spaces"
+        ).fetchall()
+        labels = [r[0] for r in con.execute("select label from newforms where char_index > 0")]
+        job_json = con.execute("select job from runs").fetchone()[0]
+    finally:
+        con.close()
+    for N, k, j, order, parity, conductor in rows:
+        chi = character_orbits(N)[j]
+        assert (order, parity, conductor) == (chi.order, chi.parity, chi.conductor)
+        assert parity == (-1) ** k
+    assert labels and all("c" in lab.split("w")[1] for lab in labels)
+    assert "13w2c4-1" in snap["labels"]  # the newform of level 13, weight 2, order-6 χ
+    assert '"characters": "all"' in job_json or '"characters":"all"' in job_json
+
+
+def test_character_units_round_trip(with_characters):
+    from builder.storage.reader import load_space
+
+    engine = make_engine(with_characters["job"].db_url)
+    for (N, k, c), (_, digest) in with_characters["snap"]["spaces"].items():
+        assert load_space(engine, N, k, c).content_hash() == digest, (N, k, c)
+    engine.dispose()
+
+
+def test_character_rerun_and_other_selection(with_characters):
+    job = with_characters["job"]
+    assert run_job(job, progress="none").status == "nothing-to-do"
+    # the selection is not a bound: another selection on the same database just plans
+    # other units (done ones are skipped, nothing is refused)
+    base = {**CHARS, "out": str(job.out)}
+    triv = load_job(None, {**base, "weights": "2", "characters": "trivial"})
+    plan = plan_job(triv)
+    assert plan.todo == [] and plan.skipped == 3
+    more = load_job(None, {**base, "levels": "11-14", "characters": "order:1,2"})
+    plan = plan_job(more)
+    assert plan.todo == [(14, 2, 0), (14, 3, 1)]
+    assert plan.skipped == len(more.units()) - 2
+    s = run_job(more, progress="none")
+    assert s.computed == 2
+    # the units outside the new selection are still there
+    assert set(with_characters["snap"]["spaces"]) <= set(snapshot(job.db_url)["spaces"])
+    # the measured character units now drive the estimates of the next plan
+    model = plan_job(load_job(None, {**base, "levels": "11-20"})).model
+    assert "nontrivial characters fitted on" in model.source
+
+
+def test_character_plan_render_and_warning(tmp_path):
+    job = job_for(tmp_path, levels="1-13", weights="2,3,5", characters="order:2")
+    out = io.StringIO()
+    plan = plan_job(job)
+    plan.render(Console(file=out, width=200))
+    text = out.getvalue()
+    assert "characters order:2" in text
+    assert "weight 3:" in text and "nontrivial χ" in text and f"units: {plan.total}" in text
+    assert plan.total == len(job.units())
+    assert not any("no units of weight" in w for w in plan.warnings)
+    job = job_for(tmp_path, levels="1-4", weights="2,3", characters="index:1")
+    plan = plan_job(job)
+    assert plan.todo == [(3, 3, 1), (4, 3, 1)]
+    assert any("no units of weight 2" in w for w in plan.warnings)
+
+
+def test_character_model_families():
+    from builder.forms.record import Params
+    from builder.pipeline.run import DEFAULT_CHAR_MODEL, cost_feature
+
+    model = fit_model({}, Params(100, 20, 6))
+    assert model.char_fallback == DEFAULT_CHAR_MODEL and model.char_trace_bound == 100
+    # x = (k−1)·ψ(N)·[Q(χ):Q]: the order-6 orbit mod 13 has degree 2
+    assert cost_feature((13, 2, 4)) == 2 * cost_feature((13, 2, 0)) == 28.0
+    assert model.predict((13, 2, 4)) > 0 and model.predict((13, 3, 5)) > 0
+
+
+def test_failed_character_unit_is_retried(tmp_path):
+    job = job_for(tmp_path, levels="13", weights="2", characters="all")
+    with pytest.raises(UnitsFailed, match="13w2c2"):
+        run_job(job, progress="none", executor=FailingOn((13, 2, 2)))
+    states = unit_states(make_engine(job.db_url))
+    assert states[(13, 2, 2)].status == "failed" and len(states) == 4
+    assert plan_job(job).todo == [(13, 2, 2)]
+    assert run_job(job, progress="none").computed == 1

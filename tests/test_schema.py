@@ -58,3 +58,27 @@ def test_readme_documents_every_parquet_column():
 
 def test_readme_states_the_schema_version():
     assert f"Schema version: **{SCHEMA_VERSION}**" in README.read_text()
+
+
+def test_character_columns_in_place():
+    """Schema 3: the character of a unit right after char_index, rel_dim after dim, and
+    the Fricke sign / root number nullable (absent for a nontrivial character)."""
+    char = ["char_order", "char_conductor", "char_parity", "char_number", "char_degree"]
+    spaces = Base.metadata.tables["spaces"]
+    cols = [c.name for c in spaces.columns]
+    i = cols.index("char_index")
+    assert cols[i + 1 : i + 6] == char
+    assert not any(spaces.c[c].nullable for c in char)
+    newforms = Base.metadata.tables["newforms"]
+    cols = [c.name for c in newforms.columns]
+    assert cols[cols.index("char_index") + 1] == "char_order"
+    assert cols[cols.index("dim") + 1] == "rel_dim"
+    assert not newforms.c.rel_dim.nullable and not newforms.c.char_order.nullable
+    assert newforms.c.fricke_sign.nullable and newforms.c.root_number.nullable
+    names = SCHEMAS["spaces"].names
+    assert names[names.index("char_index") + 1 : names.index("char_index") + 6] == char
+    names = SCHEMAS["newforms"].names
+    assert names[names.index("char_index") + 1] == "char_order"
+    assert names[names.index("dim") + 1] == "rel_dim"
+    text = README.read_text()
+    assert "the only one for now" not in text and "`13w2c4-1`" in text

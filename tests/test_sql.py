@@ -19,7 +19,13 @@ from builder.tables.source import open_source
 from builder.tables.sql import ReadOnlyViolation, run_sql
 from tests.nfb_helpers import run_nfb
 from tests.nfb_services import pg_server, pg_url  # noqa: F401 - fixtures
-from tests.tables_helpers import copy_database, copy_table, read_export, small_table
+from tests.tables_helpers import (
+    char_table,
+    copy_database,
+    copy_table,
+    read_export,
+    small_table,
+)
 
 # statements that would write, each must be refused
 WRITES = [
@@ -225,3 +231,74 @@ def test_postgresql_find_sql_and_writes_refused(table, pg_table):
     r = run_nfb("sql", "--db", pg_table, "DELETE FROM newforms")
     assert r.returncode == 2 and "refused" in r.stderr
     assert _pg_counts(pg_table) == before
+
+
+# ----------------------------------------------------------------------------- characters
+
+
+@pytest.fixture(scope="module")
+def char_tab(tmp_path_factory):
+    return char_table(tmp_path_factory)
+
+
+CHAR_QUERIES = [
+    # newforms per character order; NULL Fricke signs exactly for the nontrivial ones
+    "SELECT char_order, count(*) AS orbits, sum(dim) AS forms, sum(rel_dim) AS rel, "
+    "sum(CASE WHEN fricke_sign IS NULL THEN 1 ELSE 0 END) AS no_fricke "
+    "FROM newforms GROUP BY char_order ORDER BY char_order",
+    # the join with the unit's character
+    "SELECT n.label, s.char_conductor, s.char_parity, s.char_degree FROM newforms n "
+    "JOIN spaces s ON s.level = n.level AND s.weight = n.weight AND s.char_index = n.char_index "
+    "WHERE s.char_parity = -1 ORDER BY n.label",
+]
+
+
+def _char_reference(char_tab):
+    sp, nf, _ = read_export(char_tab)
+    g = nf.groupby("char_order")
+    first = [
+        (int(m), int(len(f)), int(f.dim.sum()), int(f.rel_dim.sum()),
+         int(f.fricke_sign.isna().sum()))  # fmt: skip
+        for m, f in g
+    ]
+    m = nf.merge(sp, on=["level", "weight", "char_index"], suffixes=("", "_s"))
+    m = m[m.char_parity == -1].sort_values("label")
+    second = [
+        (r.label, int(r.char_conductor), int(r.char_parity), int(r.char_degree))
+        for r in m.itertuples()
+    ]
+    return first, second
+
+
+def test_sql_character_columns(char_tab):
+    first, second = _char_reference(char_tab)
+    assert first[0][4] == 0 and all(row[4] == row[1] for row in first[1:])  # NULL iff χ ≠ 1
+    assert second
+    kinds = [open_source(char_tab)]
+    from builder.tables.sql import duckdb_available
+
+    if duckdb_available():  # DuckDB is optional (nfb[search]); its own tests skip visibly
+        kinds.append(open_source(parquet=char_tab / "parquet"))
+    for src in kinds:
+        with src:
+            for q, want in zip(CHAR_QUERIES, (first, second), strict=True):
+                got = [tuple(int(x) if not isinstance(x, str) else x for x in r)
+                       for r in run_sql(src, q).itertuples(index=False)]  # fmt: skip
+                assert got == want, (src.kind, q)
+
+
+def test_postgresql_character_filters(char_tab, pg_url):  # noqa: F811 - the fixture
+    copy_database(f"sqlite:///{(char_tab / 'newforms.sqlite').resolve()}", pg_url)
+    first, _ = _char_reference(char_tab)
+    with open_source(db=pg_url) as pg, open_source(char_tab) as lite:
+        for filters in (
+            dict(char_order=(3, None)),
+            dict(char_conductor=13, weight=4),
+            dict(char_parity=-1),
+            dict(trivial_char=False, ap={2: (-3, 3)}),
+            dict(fricke=-1),
+        ):
+            f = Filters.from_kwargs(**filters)
+            assert find(pg, f)["label"].tolist() == find(lite, f)["label"].tolist(), filters
+        rows = run_sql(pg, CHAR_QUERIES[0]).itertuples(index=False)
+        assert [tuple(int(x) for x in r) for r in rows] == first

@@ -225,3 +225,89 @@ def test_disk_full_error_is_clear_on_oserror(db_url, records, monkeypatch):
         w.commit(records[0])
     assert count(engine, Space.__table__) == 0
     engine.dispose()
+
+
+# ----------------------------------------------------------------------------- characters
+
+# (N, k, char_index): 13w2c4 (order 6, Q(χ) = Q(ζ_3)), 16w3c1 and 7w3c1 (odd quadratic
+# characters in odd weight, CM forms), 11w2c1 (odd character in even weight: the zero
+# space), 13w4c2 (order 3, two orbits) next to the trivial 13w4.
+CHAR_UNITS = [(13, 2, 4), (16, 3, 1), (7, 3, 1), (11, 2, 1), (13, 4, 2), (13, 4, 0)]
+
+
+@pytest.fixture(scope="module")
+def char_records():
+    return [compute_unit(N, k, PARAMS, char_index=c) for N, k, c in CHAR_UNITS]
+
+
+def test_character_round_trip(db_url, char_records):
+    from builder.characters import character_orbit
+
+    engine = fresh(db_url)
+    w = Writer(engine)
+    for rec in char_records:
+        w.commit(rec)
+    for rec in char_records:
+        back = load_space(engine, rec.level, rec.weight, rec.char_index)
+        assert back is not None
+        assert back.to_dict() == rec.to_dict()
+        assert back.content_hash() == rec.content_hash()
+    assert set(unit_states(engine)) == set(CHAR_UNITS)
+    S, N = Space.__table__, Newform.__table__
+    with engine.connect() as conn:
+        spaces = {
+            (r.level, r.weight, r.char_index): r for r in conn.execute(select(S)).mappings()
+        }
+        forms = {r.label: r for r in conn.execute(select(N)).mappings()}
+    for N_, k, c in CHAR_UNITS:
+        chi = character_orbit(N_, c)
+        row = spaces[(N_, k, c)]
+        assert (row.char_order, row.char_conductor, row.char_parity, row.char_number,
+                row.char_degree) == (chi.order, chi.conductor, chi.parity, chi.number,
+                                     chi.degree)  # fmt: skip
+    # the record contract (builder/forms/record.py): orbit dims are absolute, space dims are
+    # over Q(χ), so Σ dim = char_degree · dim_new and Σ rel_dim = dim_new
+    for rec in char_records:
+        dims = [forms[f.label].dim for f in rec.newforms]
+        rel = [forms[f.label].rel_dim for f in rec.newforms]
+        assert sum(dims) == rec.char_degree * rec.dim_new and sum(rel) == rec.dim_new
+    nontrivial = [f for f in forms.values() if f.char_index != 0]
+    assert nontrivial and all(f.char_order > 1 for f in nontrivial)
+    assert all(f.fricke_sign is None and f.root_number is None for f in nontrivial)
+    assert all(f.al_primes == [] and f.al_pattern == "" for f in nontrivial)
+    assert forms["13w2c4-1"].dim == 2 and forms["13w2c4-1"].rel_dim == 1
+    assert all(f.fricke_sign in (1, -1) for f in forms.values() if f.char_index == 0)
+    found = load_newform(engine, "13w2c4-1")
+    assert found is not None and found[1]["char_order"] == 6 and found[0]["char_order"] == 6
+    engine.dispose()
+
+
+def test_character_units_are_separate(db_url, char_records):
+    """Recommitting 13w4c2 leaves the trivial 13w4 alone (the unit key has char_index)."""
+    engine = fresh(db_url)
+    w = Writer(engine)
+    for rec in char_records:
+        w.commit(rec)
+    before = snapshot(db_url)
+    c2 = next(r for r in char_records if (r.level, r.weight, r.char_index) == (13, 4, 2))
+    w.commit(c2)
+    assert snapshot(db_url) == before
+    assert load_space(engine, 13, 4, 0).char_order == 1
+    engine.dispose()
+
+
+def test_character_failure_row(db_url, char_records):
+    from dataclasses import asdict
+
+    engine = fresh(db_url)
+    w = Writer(engine)
+    w.commit_failure((13, 2, 4), asdict(PARAMS), "Traceback: boom", 0.5)
+    with engine.connect() as conn:
+        row = conn.execute(select(Space.__table__)).mappings().one()
+    assert row["status"] == "failed"
+    # χ of index 4 mod 13: order 6, conductor 13, even (builder/characters.py)
+    assert (row["char_order"], row["char_conductor"], row["char_parity"],
+            row["char_degree"]) == (6, 13, 1, 2)  # fmt: skip
+    w.commit(next(r for r in char_records if (r.level, r.weight, r.char_index) == (13, 2, 4)))
+    assert unit_states(engine)[(13, 2, 4)].status == "done"
+    engine.dispose()

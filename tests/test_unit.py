@@ -367,8 +367,12 @@ def test_bad_params(kw, word):
 
 
 def test_bad_char_index():
+    # (Z/11)^× is cyclic of order 10: four orbits of characters (orders 1, 2, 5, 10),
+    # indices 0..3 (common practice)
     with pytest.raises(ValueError, match="char_index"):
-        compute_unit(11, 2, Params(trace_bound=10, ap_bound=10), char_index=3)
+        compute_unit(11, 2, Params(trace_bound=10, ap_bound=10), char_index=4)
+    with pytest.raises(ValueError, match="char_index"):
+        compute_unit(11, 2, Params(trace_bound=10, ap_bound=10), char_index=-1)
 
 
 @pytest.mark.parametrize("N,k", [(1, 3), (11, 3), (23, 5), (100, 7)])

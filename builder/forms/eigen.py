@@ -35,7 +35,7 @@ import numpy as np
 
 from builder.arith import factor, is_prime, primes_up_to
 from builder.forms.fields import NumberField, _power_sums
-from builder.forms.newspace import NewSpace, Orbit
+from builder.forms.newspace import NewSpace, Orbit, op_bound, op_key
 from builder.linalg_modp import (
     QMat,
     _as_int,
@@ -85,7 +85,7 @@ class _ModState:
         if st.piece(label) is None:
             return
         o0 = sysm.orbits[members[0]]
-        Al = st.op(label, "T", o0.prime)
+        Al = st.op(label, *op_key(o0.prime))
         s = Al.shape[0]
         chi = [int(c) % ell for c in (o0.poly * o0.cofactor).coeffs()]
         Kv = np.empty((s, s))
@@ -238,7 +238,7 @@ class EigenSystem:
         d, k = o.dim, self.new.k
         f = o.poly
         fprime = f.derivative()
-        rho = ceil_sqrt_times(2, o.prime ** (k - 1))
+        rho = op_bound(o.prime, k)
         shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
         bound = {p: d * ceil_sqrt_times(2, p ** (k - 1)) * shape for p in ps}
         need = 2 * max(bound.values()) + 1
@@ -379,14 +379,14 @@ class EigenForm:
         new, o = self.new, self.orbit
         if not _all_zero(new.apply_exact("old", 0, U.num)):
             return False
-        checks = [("T", o.prime, o.poly, 1)]
+        checks = [(*op_key(o.prime), o.poly, 1)]
         for step in o.label:
             if step[0] == "W":
                 _, Q, eps = step
                 checks.append(("W", Q, flint.fmpz_poly([-eps, 1]), 1))
             else:
                 _, q, g, e = step
-                checks.append(("T", q, flint.fmpz_poly(list(g)), e))
+                checks.append((*op_key(q), flint.fmpz_poly(list(g)), e))
         for kind, n, g, e in checks:
             T = new.full_op(kind, n)
             TU = QMat(new.apply_exact(kind, n, U.num), T.den * U.den)
@@ -413,8 +413,8 @@ class EigenForm:
     def _eigvec(self) -> flint.fmpq_mat:
         """Cm (d × d): c = Cm·(1, α, …) is an eigenvector of T_q on the dual basis."""
         U = self._exact_dual
-        TU = QMat(self.new.apply_exact("T", self.orbit.prime, U.num),
-                  self.space.hecke_dense(self.orbit.prime).den * U.den)
+        key = op_key(self.orbit.prime)
+        TU = QMat(self.new.apply_exact(*key, U.num), self.new.full_op(*key).den * U.den)
         A = _solve_cols(U.to_fmpq_mat(), TU.to_fmpq_mat())
         return _eigvec_matrix(self.orbit.poly, A)
 

@@ -5,8 +5,10 @@ Elements are fmpq_poly of degree < deg f (power-basis coordinates).
 Canonical defining polynomial (our rule, after [Co] §4.4 "polynomial
 reduction"): take the Z-module O spanned by the given algebra integers
 (a_n for n up to a bound, or the powers of one generator), put it in Hermite
-normal form, LLL-reduce it for the trace form Tr(xy) (positive definite since
-K is totally real), and among the reduced basis vectors, their pairwise sums
+normal form, LLL-reduce it for T2(x) = Tr(x·x̄) — the trace form Tr(xy) when K
+is totally real (trivial character), with complex conjugation x ↦ x̄ when K is
+a CM field (forms with a character) — an exact integral positive definite
+form, and among the reduced basis vectors, their pairwise sums
 and differences, keep those whose minimal polynomial has degree d = [K:Q].
 Among those polynomials choose: smallest max |coefficient|, then smallest
 sum of |coefficients|, then the coefficient list (constant term first)
@@ -111,20 +113,23 @@ def _key(poly: list[int]) -> tuple:
     return (max(abs(c) for c in poly), sum(abs(c) for c in poly), poly)
 
 
-def canonical_polynomial(K: NumberField, elements: list) -> tuple[flint.fmpz_poly, flint.fmpq_poly]:
+def canonical_polynomial(K: NumberField, elements: list,
+                         conj: flint.fmpq_mat | None = None
+                         ) -> tuple[flint.fmpz_poly, flint.fmpq_poly]:
     """(g, β): the canonical defining polynomial and the generator β ∈ K it is of.
 
     ``elements`` must span a Z-module of rank d made of algebraic integers
-    (e.g. Hecke eigenvalues); see the module docstring for the rule.
+    (e.g. Hecke eigenvalues); see the module docstring for the rule.  LLL reduces the
+    module for T2(x) = Σ_σ |σ(x)|² = Tr_{K/Q}(x·x̄) ([Co] §4.4.2), exactly: ``conj`` is the
+    matrix of complex conjugation on power-basis coordinates (rows), for a CM field
+    (forms with a character); None means the identity — K totally real, where T2 is the
+    trace form Tr(xy).
     """
     d = K.d
     if d == 1:
         return flint.fmpz_poly([0, 1]), K.elt([0])
     basis = _hnf_basis(K, elements)
-    G = flint.fmpz_mat(d, d)
-    for i in range(d):
-        for j in range(d):
-            G[i, j] = int(K.trace(K.mul(basis[i], basis[j])))
+    G = _t2_gram(K, basis, conj)
     _, U = _lll_gram(G)
     reduced = []
     for i in range(d):
@@ -143,6 +148,26 @@ def canonical_polynomial(K: NumberField, elements: list) -> tuple[flint.fmpz_pol
     if best is None:
         raise ArithmeticError("no generator of K among the reduced elements")
     return best[1], best[2]
+
+
+def _t2_gram(K: NumberField, basis: list, conj: flint.fmpq_mat | None) -> flint.fmpz_mat:
+    """Gram matrix Tr(b_i·conj(b_j)) — integers, the b_i being algebraic integers."""
+    d = K.d
+    if conj is None:
+        bars = basis
+    else:
+        bars = []
+        for b in basis:
+            row = flint.fmpq_mat(1, d, K.coords(b)) * conj
+            bars.append(K.elt([row[0, j] for j in range(d)]))
+    G = flint.fmpz_mat(d, d)
+    for i in range(d):
+        for j in range(d):
+            t = K.trace(K.mul(basis[i], bars[j]))
+            if t.q != 1:
+                raise ArithmeticError("T2 Gram entry is not an integer")
+            G[i, j] = int(t.p)
+    return G
 
 
 def _best_generator(K: NumberField, cands: list):

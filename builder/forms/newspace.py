@@ -106,8 +106,8 @@ class Orbit:
                 blocks.append(_minus_scalar(new.op("W", Q), eps))
             else:
                 _, q, g, e = step
-                blocks.append(poly_at(_power(flint.fmpz_poly(list(g)), e), new.op("T", q)))
-        blocks.append(poly_at(self.poly, new.op("T", self.prime)))
+                blocks.append(poly_at(_power(flint.fmpz_poly(list(g)), e), new.op(*op_key(q))))
+        blocks.append(poly_at(self.poly, new.op(*op_key(self.prime))))
         den = 1
         for b in blocks:
             den = den * b.den // gcd(den, b.den)
@@ -162,7 +162,7 @@ class _ModStructure:
                 out = _kernel_mod(A - eps * np.eye(s), self.ell)
             else:
                 _, q, g, e = step
-                A = self.op(label[:-1], "T", q)
+                A = self.op(label[:-1], *op_key(q))
                 G = _poly_at_mod(_power(flint.fmpz_poly(list(g)), e), A, self.ell)
                 K, free = _kernel_mod(G, self.ell)
                 rest = self.new.node_charpoly(label[:-1]) // _power(flint.fmpz_poly(list(g)), e)
@@ -231,9 +231,22 @@ class NewSpace:
         E = exact_rref(Z)
         return E.kernel(), E.free
 
-    def full_op(self, kind: str, n: int) -> QMat:
-        """T_n ("T") or W_n ("W") on the whole symbol space (rows = images), exact."""
+    def full_op(self, kind: str, n) -> QMat:
+        """T_n ("T"), W_n ("W") or Σ c_q T_q ("C", n = ((q, c), …)) on the whole symbol
+        space (rows = images), exact."""
         S = self.space
+        if kind == "C":
+            key = ("combo", n)
+            if key not in self._exact_ops:
+                parts = [(S.hecke_dense(q), c) for q, c in n]
+                den = 1
+                for T, _ in parts:
+                    den = den * T.den // gcd(den, T.den)
+                num = sum(_times(T.num, c * (den // T.den)) for T, c in parts)
+                if num.dtype == object and _row_abs_max(num) < (1 << 62):
+                    num = num.astype(np.int64)
+                self._exact_ops[key] = QMat(num, den).reduced()
+            return self._exact_ops[key]
         return S.hecke_dense(n) if kind == "T" else S.atkin_lehner_dense(n)
 
     def apply_exact(self, kind: str, n: int, v: np.ndarray) -> np.ndarray:
@@ -323,8 +336,8 @@ class NewSpace:
             return self._charpolys[label]
         q = self._split_prime[label]
         cusp = any(step[0] == "P" for step in label)
-        rho = isqrt(4 * q ** (self.k - 1)) + 1 if cusp else 1 + q ** (self.k - 1)
-        exact = self._exact_piece_op(label, q)
+        rho = op_bound(q, self.k) if cusp else 1 + q ** (self.k - 1)
+        exact = self._exact_piece_op(label, q) if isinstance(q, int) else None
         if exact is not None:
             chi = charpoly_bounded(exact, rho)
             self._charpolys[label] = chi
@@ -340,7 +353,7 @@ class NewSpace:
                 if bad > 50:
                     raise ArithmeticError(f"level {self.N}: no good prime for a piece")
                 continue
-            A = st.op(label, "T", q)
+            A = st.op(label, *op_key(q))
             if s is None:
                 s = A.shape[0]
                 need = 2 * (1 + rho) ** s
@@ -416,7 +429,7 @@ class NewSpace:
                 f"level {self.N} weight {self.k}: Hecke operators up to the Sturm bound "
                 "did not split the new subspace (multiplicity one violated?)"
             )
-        q = primes[i]
+        q = split_operator(primes, i)
         self._split_prime[label] = q
         chi = self.node_charpoly(label)
         _, facs = chi.factor()
@@ -472,6 +485,29 @@ class NewSpace:
 
 
 # -- helpers ----------------------------------------------------------------------------------
+
+
+def split_operator(primes: list[int], i: int):
+    """The operator of a splitting node at depth i: T_q for q = primes[i] when i ≤ 1, else
+    the combination Σ_{t=1..i} t·T_{primes[t]} (as ((q, c), …)).  A primary part on which
+    every single a_q lies in a proper subfield of K_f (forms with several inner twists,
+    e.g. N = 7200) is never split by one T_q; a combination of a_q from different subfields
+    generates K_f (design.md §3: "Z-combinations where one operator does not separate")."""
+    if i <= 1:
+        return primes[i]
+    return tuple((primes[t], t) for t in range(1, i + 1))
+
+
+def op_key(q) -> tuple[str, object]:
+    """(kind, n) of a splitting operator: ("T", q) for a prime, ("C", combo) otherwise."""
+    return ("T", q) if isinstance(q, int) else ("C", q)
+
+
+def op_bound(q, k: int) -> int:
+    """An integer ≥ |σ(eigenvalue)| of the splitting operator on cusp forms (Deligne)."""
+    if isinstance(q, int):
+        return isqrt(4 * q ** (k - 1)) + 1
+    return sum(abs(c) * (isqrt(4 * p ** (k - 1)) + 1) for p, c in q)
 
 
 def _kernel_mod(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:

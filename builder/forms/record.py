@@ -15,7 +15,7 @@ import hashlib
 import json
 from dataclasses import asdict, dataclass, field
 
-RECORD_VERSION = 1
+RECORD_VERSION = 2
 
 
 @dataclass(frozen=True)
@@ -50,8 +50,8 @@ class NewformRecord:
     field_disc: str | None  # discriminant of field_poly (decimal string); None if dim > dim_cap
     traces: list[int]  # Tr_{K/Q} a_n for n = 1..trace_bound; traces[0] == dim
     atkin_lehner: dict[int, int]  # p ↦ eigenvalue of W_{p^e} (p^e ∥ N), ±1
-    fricke_sign: int  # eigenvalue of W_N
-    root_number: int  # sign of the functional equation = (−1)^(k/2)·fricke_sign
+    fricke_sign: int | None  # eigenvalue of W_N (None for a nontrivial character)
+    root_number: int | None  # sign of the functional equation = (−1)^(k/2)·fricke_sign
     is_cm: bool
     cm_disc: int | None  # the CM discriminant (negative) when is_cm
     # whether L(f, 1) = 0 (k = 2) / L(f, k/2) = 0 (k > 2); None when the +1 symbols cannot tell
@@ -60,6 +60,7 @@ class NewformRecord:
     ap: dict[int, list[str]] | None  # p ↦ coordinates of a_p in the power basis
     # of a root of field_poly (length dim, rationals as strings); None if dim > dim_cap
     hecke_poly_2: list[int] | None = None  # charpoly of a_p for the first p ∤ N (const first)
+    rel_dim: int | None = None  # degree over Q(χ) = dim / char_degree (None: = dim)
 
 
 @dataclass
@@ -79,6 +80,12 @@ class SpaceRecord:
     newforms: list[NewformRecord] = field(default_factory=list)
     seconds: float = 0.0  # compute time; not part of the content hash
     record_version: int = RECORD_VERSION
+    char_order: int = 1  # the character orbit of the unit (builder.characters)
+    char_conductor: int = 1
+    char_parity: int = 1  # χ(−1)
+    char_number: int = 1  # python-flint's number of the orbit's representative χ
+    char_degree: int = 1  # [Q(χ):Q] = φ(order): orbit dims are absolute, dims of spaces
+    # (dim_cusp, dim_new, …) are over Q(χ), so Σ orbit dims = char_degree·dim_new
 
     def to_dict(self) -> dict:
         return asdict(self)

@@ -9,6 +9,7 @@ a_p for p = 2, 3, 5, … as integers, then traces of a_n) and numbered from 1.
 
 from __future__ import annotations
 
+import gc
 import time
 from math import gcd
 
@@ -24,6 +25,7 @@ from builder.arith import (
     primes_up_to,
     sturm_bound,
 )
+from builder.characters import character_orbit
 from builder.forms.eigen import EigenForm, eigen_system, fill_multiplicative
 from builder.forms.fields import canonical_polynomial, change_basis_matrix
 from builder.forms.newspace import NewSpace
@@ -36,16 +38,19 @@ FIELD_BOUND = 50  # a_n for n ≤ 50·2^j span the order used for the field poly
 
 
 def compute(N: int, k: int, params: Params, char_index: int = 0) -> SpaceRecord:
-    """The record of S_k(Γ0(N)) (trivial character); pure and deterministic."""
+    """The record of S_k(Γ0(N), χ) for the character orbit ``char_index`` of
+    builder.characters (0 = trivial); pure and deterministic."""
     N, k = check_level(N), check_weight(k)
     params.validate()
-    if char_index != 0:
-        raise ValueError(f"char_index must be 0 (trivial character) for now, got {char_index}")
+    chi = character_orbit(N, char_index)  # ValueError naming char_index if absent
     t0 = time.perf_counter()
     try:
+        if not chi.is_trivial:
+            return _compute_char(N, k, chi, params, t0)
         return _compute(N, k, params, t0)
     finally:
         clear_caches()  # bounded memory across the units of a long run
+        gc.collect()  # the space ↔ eigen-system cycles hold big arrays: free them now
 
 
 def _compute(N: int, k: int, params: Params, t0: float) -> SpaceRecord:
@@ -81,6 +86,20 @@ def _compute(N: int, k: int, params: Params, t0: float) -> SpaceRecord:
     )
 
 
+def _compute_char(N: int, k: int, chi, params: Params, t0: float) -> SpaceRecord:
+    from builder.forms.charforms import compute_char
+
+    if (k % 2 == 0) != (chi.parity == 1):  # χ(−1) ≠ (−1)^k: the zero space
+        return SpaceRecord(
+            level=N, weight=k, char_index=chi.index, params=_params_dict(params),
+            dim_cusp=0, dim_new=0, dim_old=0, dim_eis=0, num_orbits=0,
+            sturm_bound=sturm_bound(N, k), char_order=chi.order,
+            char_conductor=chi.conductor, char_parity=chi.parity, char_number=chi.number,
+            char_degree=chi.degree,
+        )
+    return compute_char(N, k, chi, params, t0)
+
+
 def _params_dict(p: Params) -> dict:
     return {"trace_bound": p.trace_bound, "ap_bound": p.ap_bound, "dim_cap": p.dim_cap}
 
@@ -107,6 +126,7 @@ def _orbit_data(E: EigenForm, traces: list[int], params: Params) -> dict:
     ptraces = [traces[p - 1] for p in primes_up_to(B)]
     return {
         "dim": d,
+        "rel_dim": d,
         "field_poly": [int(c) for c in poly.coeffs()],
         # above the cap the discriminant of the Hecke polynomial has up to ~10⁵ digits: not kept
         "field_disc": (str(int(poly.discriminant())) if d > 1 else "1") if exact else None,

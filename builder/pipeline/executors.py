@@ -35,10 +35,11 @@ class Outcome:
 
 
 def _test_unit_sleep(unit: Unit) -> None:
-    raw = os.environ.get("NFB_TEST_UNIT_SLEEP")  # "N,k,SECONDS": test hook, see DEVELOPERS.md
+    # test hook, see DEVELOPERS.md: "N,k,SECONDS" (the unit (N, k, 0)) or "N,k,j,SECONDS"
+    raw = os.environ.get("NFB_TEST_UNIT_SLEEP")
     if raw:
-        N, k, secs = raw.split(",")
-        if (int(N), int(k)) == unit[:2]:
+        *key, secs = raw.split(",")
+        if tuple(int(x) for x in key) + (0,) * (3 - len(key)) == tuple(unit):
             time.sleep(float(secs))
 
 

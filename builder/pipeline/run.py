@@ -7,14 +7,18 @@
     print(plan_job(job).total_estimate)        # seconds, from measured rates
     summary = run_job(job, progress="none")    # what `nfb run` does
 
-A *unit* is (N, k, χ) (χ = 0, the trivial character, for now). The plan is
-every unit of the job that the database does not hold as 'done' with the
-job's bounds, in the canonical order (weight, then level). That one rule gives
+A *unit* is (N, k, j): level, weight and the index j of a Galois orbit of
+Dirichlet characters mod N (0 = trivial; the job's ``characters`` selection, see
+builder/pipeline/jobs.py, decides which j, never one that is zero by parity). The
+plan is every unit of the job that the database does not hold as 'done' with the
+job's bounds, in the canonical order (weight, level, j). That one rule gives
 resume (done units are skipped; a unit interrupted before its commit is absent
 and planned again), retry (a 'failed' unit is planned again) and extend (more
 levels/weights: only the new units; larger bounds with ``extend=True``: the
 units stored with smaller bounds are recomputed and replaced, each in one
-transaction, so an interrupted extension resumes like any run).
+transaction, so an interrupted extension resumes like any run). The character
+selection is not a bound: a rerun with another selection plans other units of
+the same database (the units outside the selection stay stored, untouched).
 
 A database records the bounds it is built with (meta.params). A job with other
 bounds is refused (``BadInput``, exit code 2, nothing written) unless
@@ -26,7 +30,10 @@ fitted by least squares on log t over the units already stored
 (``spaces.seconds``; units stored with another trace_bound are rescaled by
 (trace_bound ratio)^e_k, ``TRACE_EXP``). With no measured units, ``DEFAULT_MODEL``
 (measured on the quickstart job on this project's 2-core reference machine,
-benchmarks/README.md) is used.
+benchmarks/README.md) is used. Units with a nontrivial character j are a second
+family with its own fits and x = (k − 1)·ψ(N)·[Q(χ):Q] (their cost grows with the
+degree of the character's values); ``DEFAULT_CHAR_MODEL`` was measured on
+jobs/characters.toml (levels ≤ 40 only, so a rough guide for larger levels).
 """
 
 from __future__ import annotations
@@ -45,7 +52,7 @@ from rich.console import Console
 from builder.forms.record import Params
 from builder.pipeline.errors import BadInput, Interrupted, NfbError, StorageError, UnitsFailed
 from builder.pipeline.executors import Executor, Unit, make_executor
-from builder.pipeline.jobs import Job, compress_levels, redact_url
+from builder.pipeline.jobs import Job, character_table, compress_levels, redact_url
 from builder.pipeline.progress import fmt_seconds, make_reporter
 from builder.pipeline.signals import SignalGuard
 
@@ -58,6 +65,10 @@ MIN_FIT = 8
 # 10000 (rescaled from trace_bound 1000), which also matches the quickstart's N ≤ 100;
 # weight 4 from the quickstart run (N ≤ 100 only). Higher weights use weight 4's.
 DEFAULT_MODEL = {2: (3.5e-7, 1.96), 4: (4.6e-4, 1.26)}
+# nontrivial characters, x = (k−1)·ψ(N)·[Q(χ):Q], all weights: least squares over the
+# 253 nontrivial units of levels 10-40 of jobs/characters.toml (trace_bound 100; the
+# residuals are large, ~1.5 in log t: a rough guide until the database has measurements)
+DEFAULT_CHAR_MODEL = (6.8e-6, 1.73)
 # t ∝ trace_bound^e_k, measured between trace_bound 100 and 1000 (levels ≤ 1000)
 TRACE_EXP = {2: 0.5, 4: 1.5}
 
@@ -93,9 +104,16 @@ def unit_label(unit: Unit) -> str:
     return f"{N}w{k}" + (f"c{c}" if c else "")
 
 
+def char_degree(N: int, j: int) -> int:
+    """[Q(χ):Q] = φ(order) for the character orbit j mod N (1 if j is not an index)."""
+    table = character_table(N)
+    m = table[j][1] if 0 <= j < len(table) else 1
+    return sum(1 for a in range(1, m + 1) if math.gcd(a, m) == 1)
+
+
 def cost_feature(unit: Unit) -> float:
-    N, k, _ = unit
-    return float((k - 1) * psi(N))
+    N, k, j = unit
+    return float((k - 1) * psi(N) * (char_degree(N, j) if j else 1))
 
 
 def code_version() -> str:
@@ -131,18 +149,29 @@ def code_version() -> str:
 
 @dataclass
 class Model:
-    """t(N, k) ≈ A_k · x^B_k seconds, x = (k − 1)·ψ(N); ``fits[k] = (A_k, B_k)``."""
+    """t(N, k) ≈ A_k · x^B_k seconds, x = (k − 1)·ψ(N); ``fits[k] = (A_k, B_k)``.
+
+    ``char_*``: the same for the units with a nontrivial character (``cost_feature``).
+    """
 
     fits: dict[int, tuple[float, float]]
     fallback: tuple[float, float]
     source: str
     trace_bound: int | None = None  # default model: rescale from trace_bound 100
+    char_fits: dict[int, tuple[float, float]] = field(default_factory=dict)
+    char_fallback: tuple[float, float] = DEFAULT_CHAR_MODEL
+    char_trace_bound: int | None = None
 
     def predict(self, unit: Unit) -> float:
-        A, B = self.fits.get(unit[1], self.fallback)
+        if unit[2]:
+            A, B = self.char_fits.get(unit[1], self.char_fallback)
+            tb = self.char_trace_bound
+        else:
+            A, B = self.fits.get(unit[1], self.fallback)
+            tb = self.trace_bound
         scale = 1.0
-        if self.trace_bound is not None:
-            scale = (self.trace_bound / 100) ** trace_exp(unit[1])
+        if tb is not None:
+            scale = (tb / 100) ** trace_exp(unit[1])
         return scale * A * cost_feature(unit) ** B
 
 
@@ -160,18 +189,15 @@ def _least_squares(pts: list[tuple[float, float]]) -> tuple[float, float] | None
     return math.exp(my - B * mx), B
 
 
-def fit_model(states: dict, params: Params) -> Model:
-    """Least squares of log t on log x over the stored units (see the module doc).
-
-    Units stored with another trace_bound count with their time scaled by
-    (trace_bound / theirs)^e_k (``TRACE_EXP``); a weight with fewer than MIN_FIT measured
-    units uses the fit over all weights, and no measurements the default model.
-    """
+def _fit_family(states: dict, params: Params, nontrivial: bool):
+    """(fits per weight, joint fit or None, number of measured units) of one family."""
     from builder.storage.models import STATUS_DONE
 
     pts: dict[int, list[tuple[float, float]]] = {}
     n = 0
     for u, st in states.items():
+        if bool(u[2]) != nontrivial:
+            continue
         if st.status != STATUS_DONE or st.seconds <= 0 or cost_feature(u) <= 0:
             continue
         tb = st.params.get("trace_bound", params.trace_bound) or params.trace_bound
@@ -179,16 +205,37 @@ def fit_model(states: dict, params: Params) -> Model:
         pts.setdefault(u[1], []).append((math.log(cost_feature(u)), y))
         n += 1
     joint = _least_squares([p for v in pts.values() for p in v])
+    if joint is None:
+        return {}, None, n
+    return {k: f for k, v in pts.items() if (f := _least_squares(v)) is not None}, joint, n
+
+
+def fit_model(states: dict, params: Params) -> Model:
+    """Least squares of log t on log x over the stored units (see the module doc).
+
+    Units stored with another trace_bound count with their time scaled by
+    (trace_bound / theirs)^e_k (``TRACE_EXP``); a weight with fewer than MIN_FIT measured
+    units uses the fit over all weights, and no measurements the default model. The
+    trivial and the nontrivial characters are fitted separately.
+    """
+    fits, joint, n = _fit_family(states, params, nontrivial=False)
+    char_fits, char_joint, m = _fit_family(states, params, nontrivial=True)
     if joint is not None:
-        fits = {k: f for k, v in pts.items() if (f := _least_squares(v)) is not None}
-        return Model(fits, joint, f"fitted on {n} measured units")
-    A, B = DEFAULT_MODEL[4]
-    return Model(
-        dict(DEFAULT_MODEL),
-        (A, B),
-        "default model (benchmarks/README.md); no measured units yet",
-        trace_bound=params.trace_bound,
-    )
+        model = Model(fits, joint, f"fitted on {n} measured units")
+    else:
+        A, B = DEFAULT_MODEL[4]
+        model = Model(
+            dict(DEFAULT_MODEL),
+            (A, B),
+            "default model (benchmarks/README.md); no measured units yet",
+            trace_bound=params.trace_bound,
+        )
+    if char_joint is not None:
+        model.char_fits, model.char_fallback = char_fits, char_joint
+        model.source += f"; nontrivial characters fitted on {m} measured units"
+    else:
+        model.char_trace_bound = params.trace_bound
+    return model
 
 
 # ----------------------------------------------------------------------------- planning
@@ -206,6 +253,7 @@ class Plan:
     db_params: Params | None
     extend: bool
     warnings: list[str] = field(default_factory=list)
+    total: int = 0  # units of the job (done or not)
 
     @property
     def total_estimate(self) -> float:
@@ -213,23 +261,33 @@ class Plan:
 
     def render(self, console: Console) -> None:
         job = self.job
+        chars = job.characters
         console.print(f"[bold]plan[/bold] for {job.name or job.source}")
         console.print(
             f"  levels {compress_levels(job.levels)}, weights {list(job.weights)}, "
-            f"bounds {asdict(job.params)}"
+            + ("" if chars.is_trivial else f"characters {chars.spec}, ")
+            + f"bounds {asdict(job.params)}",
+            markup=False,
         )
         console.print(f"  database {redact_url(job.db_url)}" + ("" if self.db_exists else " (new)"))
         console.print(
-            f"  units: {len(job.levels) * len(job.weights)} in the job, {self.skipped} done, "
+            f"  units: {self.total} in the job, {self.skipped} done, "
             f"{len(self.todo)} to compute" + (f" ({self.redo} recomputed)" if self.redo else "")
         )
         for k in job.weights:
             units = [u for u in self.todo if u[1] == k]
             if units:
                 est = sum(self.estimates[u] for u in units)
+                nontrivial = sum(1 for u in units if u[2])
+                split = (
+                    ""
+                    if chars.is_trivial
+                    else f" ({len(units) - nontrivial} trivial χ, {nontrivial} nontrivial χ)"
+                )
                 console.print(
-                    f"    weight {k}: {len(units)} units, levels "
-                    f"{compress_levels([u[0] for u in units])}, ≈ {fmt_seconds(est)} of compute"
+                    f"    weight {k}: {len(units)} units{split}, levels "
+                    f"{compress_levels(sorted({u[0] for u in units}))}, "
+                    f"≈ {fmt_seconds(est)} of compute"
                 )
         par = job.workers if not job.dask else None
         wall = self.total_estimate / (par or 1)
@@ -304,9 +362,10 @@ def make_plan(job: Job, extend: bool = False) -> tuple[Plan, object | None]:
             _compare_params(job, db_params, where, extend)
         states = unit_states(engine)
     want = asdict(job.params)
+    units = job.units()
     todo: list[Unit] = []
     skipped = redo = 0
-    for unit in job.units():
+    for unit in units:
         st = states.get(unit)
         if st is not None and st.status == STATUS_DONE and st.params == want:
             skipped += 1
@@ -317,7 +376,7 @@ def make_plan(job: Job, extend: bool = False) -> tuple[Plan, object | None]:
     model = fit_model(states, job.params)
     estimates = {u: model.predict(u) for u in todo}
     warnings = []
-    low = [u for u in job.units() if sturm_bound(u[0], u[1]) > job.params.trace_bound]
+    low = [u for u in units if sturm_bound(u[0], u[1]) > job.params.trace_bound]
     if low:
         u = low[0]
         warnings.append(
@@ -325,7 +384,16 @@ def make_plan(job: Job, extend: bool = False) -> tuple[Plan, object | None]:
             f"units (from {unit_label(u)}: {sturm_bound(u[0], u[1])}); their stored traces "
             "need not separate every pair of orbits (labels and exact a_p are unaffected)"
         )
-    plan = Plan(job, todo, skipped, redo, estimates, model, exists, db_params, extend, warnings)
+    empty = [k for k in job.weights if not any(u[1] == k for u in units)]
+    if empty:
+        warnings.append(
+            f"no units of weight{'s' if len(empty) > 1 else ''} {', '.join(map(str, empty))}: "
+            f'characters "{job.characters.spec}" has no orbit with χ(−1) = (−1)^k at levels '
+            f"{compress_levels(job.levels)}"
+        )
+    plan = Plan(
+        job, todo, skipped, redo, estimates, model, exists, db_params, extend, warnings, len(units)
+    )
     return plan, engine
 
 

@@ -6,9 +6,11 @@ by ``python -m builder.storage.models`` and kept in sync by tests/test_schema.py
 
 * ``meta``        key/value: ``schema_version``, ``params`` (the bounds of the db)
 * ``runs``        one row per ``nfb run``: code version, parameters, host, times, status
-* ``spaces``      one row per unit (N, k, χ): dimensions, #orbits, Sturm bound, timing,
+* ``spaces``      one row per unit (N, k, χ): the character orbit (order, conductor,
+                  parity, number, degree), dimensions, #orbits, Sturm bound, timing,
                   status, content hash, the bounds it was computed with
-* ``newforms``    one row per Galois orbit, every field of ``NewformRecord``
+* ``newforms``    one row per Galois orbit, every field of ``NewformRecord`` (plus the
+                  unit's ``char_order``, copied for searches without a join)
 * ``eigenvalues`` exact a_p per orbit and prime p ≤ ap_bound (orbits of dim ≤ dim_cap)
 
 Natural keys throughout: a unit is (level, weight, char_index), an orbit its
@@ -39,7 +41,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 STATUS_DONE = "done"
 STATUS_FAILED = "failed"
@@ -80,6 +82,12 @@ class Space(Base):
     level: Mapped[int] = mapped_column(Integer, primary_key=True)
     weight: Mapped[int] = mapped_column(Integer, primary_key=True)
     char_index: Mapped[int] = mapped_column(Integer, primary_key=True)
+    # the character orbit of the unit (builder/characters.py); known for failed rows too
+    char_order: Mapped[int] = mapped_column(Integer)
+    char_conductor: Mapped[int] = mapped_column(Integer)
+    char_parity: Mapped[int] = mapped_column(Integer)  # χ(−1) = ±1
+    char_number: Mapped[int] = mapped_column(Integer)  # flint/Conrey number of the representative
+    char_degree: Mapped[int] = mapped_column(Integer)  # [Q(χ):Q] = φ(char_order)
     status: Mapped[str] = mapped_column(String(16))  # done | failed
     dim_cusp: Mapped[int | None] = mapped_column(Integer, nullable=True)
     dim_new: Mapped[int | None] = mapped_column(Integer, nullable=True)
@@ -101,6 +109,7 @@ class Space(Base):
         Index("ix_spaces_weight_level", "weight", "level"),
         Index("ix_spaces_dim_new", "dim_new"),
         Index("ix_spaces_status", "status"),
+        Index("ix_spaces_char_order", "char_order"),
     )
 
 
@@ -111,8 +120,10 @@ class Newform(Base):
     level: Mapped[int] = mapped_column(Integer)
     weight: Mapped[int] = mapped_column(Integer)
     char_index: Mapped[int] = mapped_column(Integer)
+    char_order: Mapped[int] = mapped_column(Integer)  # = spaces.char_order (denormalised)
     orbit: Mapped[int] = mapped_column(Integer)
-    dim: Mapped[int] = mapped_column(Integer)
+    dim: Mapped[int] = mapped_column(Integer)  # [K_f : Q]
+    rel_dim: Mapped[int] = mapped_column(Integer)  # [K_f : Q(χ)] = dim / char_degree
     field_poly: Mapped[list] = mapped_column(JSON)  # integer coefficients, constant first
     # decimal string (may exceed 64 bits); NULL above the unit's dim_cap
     field_disc: Mapped[str | None] = mapped_column(Text, nullable=True)
@@ -120,8 +131,9 @@ class Newform(Base):
     al_primes: Mapped[list] = mapped_column(JSON)  # primes p | N, increasing
     al_signs: Mapped[list] = mapped_column(JSON)  # W_{p^e} eigenvalue for each, ±1
     al_pattern: Mapped[str] = mapped_column(String(255))  # e.g. "2-3+" ("" for N = 1)
-    fricke_sign: Mapped[int] = mapped_column(Integer)
-    root_number: Mapped[int] = mapped_column(Integer)
+    # NULL for a nontrivial character (W_N maps S_k(N, χ) to S_k(N, χ̄), Atkin–Li)
+    fricke_sign: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    root_number: Mapped[int | None] = mapped_column(Integer, nullable=True)
     is_cm: Mapped[bool] = mapped_column(Boolean)
     cm_disc: Mapped[int | None] = mapped_column(BigInteger, nullable=True)
     lvalue_zero: Mapped[bool | None] = mapped_column(Boolean, nullable=True)  # None: not decided
@@ -139,6 +151,7 @@ class Newform(Base):
         Index("ix_newforms_level_weight", "level", "weight"),
         Index("ix_newforms_weight_level", "weight", "level"),
         Index("ix_newforms_dim", "dim"),
+        Index("ix_newforms_char_order", "char_order"),
         Index("ix_newforms_fricke_sign", "fricke_sign"),
         Index("ix_newforms_root_number", "root_number"),
         Index("ix_newforms_al_pattern", "al_pattern"),

@@ -3,6 +3,13 @@
 ``record_to_rows`` gives the rows of one unit for the spaces, newforms and
 eigenvalues tables; ``rows_to_record`` rebuilds the identical ``SpaceRecord``
 (same ``content_hash()``), which the tests check for every stored unit.
+
+Characters: the unit's character orbit (``char_order``, ``char_conductor``,
+``char_parity``, ``char_number``, ``char_degree``) is stored in ``spaces``, and
+``char_order`` is copied into every newform row. ``rel_dim`` (the degree over Q(χ))
+is stored as given; a record that leaves it None (records older than
+RECORD_VERSION 2; the math core sets it on every orbit now) is stored with
+``rel_dim = dim`` and read back with that value.
 """
 
 from __future__ import annotations
@@ -16,12 +23,31 @@ def al_pattern(atkin_lehner: dict[int, int]) -> str:
     return "".join(f"{p}{'+' if s > 0 else '-'}" for p, s in sorted(atkin_lehner.items()))
 
 
+CHAR_COLUMNS = ("char_order", "char_conductor", "char_parity", "char_number", "char_degree")
+
+
+def character_columns(N: int, char_index: int) -> dict:
+    """The character columns of the unit (N, k, char_index) from builder/characters.py
+    (for rows without a record: failed units)."""
+    from builder.characters import character_orbit
+
+    chi = character_orbit(N, char_index)  # ValueError naming char_index if there is none
+    return {
+        "char_order": chi.order,
+        "char_conductor": chi.conductor,
+        "char_parity": chi.parity,
+        "char_number": chi.number,
+        "char_degree": chi.degree,
+    }
+
+
 def space_row(rec: SpaceRecord, run_id: int | None) -> dict:
     p = rec.params
     return {
         "level": rec.level,
         "weight": rec.weight,
         "char_index": rec.char_index,
+        **{c: int(getattr(rec, c)) for c in CHAR_COLUMNS},
         "status": STATUS_DONE,
         "dim_cusp": rec.dim_cusp,
         "dim_new": rec.dim_new,
@@ -48,8 +74,10 @@ def newform_row(rec: SpaceRecord, f: NewformRecord) -> dict:
         "level": rec.level,
         "weight": rec.weight,
         "char_index": rec.char_index,
+        "char_order": int(rec.char_order),
         "orbit": f.orbit,
         "dim": f.dim,
+        "rel_dim": f.dim if f.rel_dim is None else int(f.rel_dim),
         "field_poly": [int(c) for c in f.field_poly],
         "field_disc": None if f.field_disc is None else str(f.field_disc),
         "traces": [int(t) for t in f.traces],
@@ -106,6 +134,7 @@ def rows_to_record(space: dict, newforms: list[dict], eigen: list[dict]) -> Spac
                 l_ratio=n["l_ratio"],
                 ap=(by_label.get(n["label"], {}) if n["has_ap"] else None),
                 hecke_poly_2=None if n["hecke_poly_2"] is None else list(n["hecke_poly_2"]),
+                rel_dim=n["rel_dim"],
             )
         )
     return SpaceRecord(
@@ -122,4 +151,5 @@ def rows_to_record(space: dict, newforms: list[dict], eigen: list[dict]) -> Spac
         newforms=forms,
         seconds=space["seconds"],
         record_version=space["record_version"] or RECORD_VERSION,
+        **{c: space[c] for c in CHAR_COLUMNS},
     )

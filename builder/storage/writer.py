@@ -34,7 +34,7 @@ from sqlalchemy.exc import DBAPIError, SQLAlchemyError
 from builder.forms.record import SpaceRecord
 from builder.pipeline.errors import StorageError
 from builder.storage.models import STATUS_FAILED, Eigenvalue, Newform, Run, Space
-from builder.storage.rows import record_to_rows
+from builder.storage.rows import character_columns, record_to_rows
 
 log = logging.getLogger("nfb")
 
@@ -54,6 +54,11 @@ def _hook(name: str) -> tuple[int, int, str] | None:
 
 def now() -> datetime:
     return datetime.now(UTC)
+
+
+def unit_name(N: int, k: int, c: int = 0) -> str:
+    """37w2, or 13w2c4 for a nontrivial character (the label without the orbit)."""
+    return f"{N}w{k}" + (f"c{c}" if c else "")
 
 
 def describe_storage_error(e: BaseException) -> str:
@@ -168,7 +173,8 @@ class Writer:
                 self._test_hooks(rec.level, rec.weight)
         except (OSError, DBAPIError) as e:
             raise StorageError(
-                f"storing unit {rec.level}w{rec.weight} failed: {describe_storage_error(e)}; "
+                f"storing unit {unit_name(rec.level, rec.weight, rec.char_index)} failed: "
+                f"{describe_storage_error(e)}; "
                 "the transaction was rolled back and the database is intact — "
                 "fix the cause and rerun the same command to resume"
             ) from e
@@ -185,6 +191,7 @@ class Writer:
             "level": N,
             "weight": k,
             "char_index": c,
+            **character_columns(N, c),  # the unit's character is known without its record
             "status": STATUS_FAILED,
             "seconds": float(seconds),
             "params": dict(params),
@@ -207,5 +214,6 @@ class Writer:
                 conn.execute(insert(_SPACES), [row])
         except (OSError, DBAPIError) as e:
             raise StorageError(
-                f"recording the failure of unit {N}w{k} failed: {describe_storage_error(e)}"
+                f"recording the failure of unit {unit_name(N, k, c)} failed: "
+                f"{describe_storage_error(e)}"
             ) from e

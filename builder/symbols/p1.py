@@ -129,6 +129,34 @@ class P1:
         r = (d % M) * self._inv_list[off + (c // g) % M] % M
         return self._idx_list[off + r]
 
+    def index_scalar(self, c: np.ndarray, d: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(j, λ): the point index j and the unit λ mod N with (c, d) ≡ λ·(c_j, d_j) (mod N).
+
+        λ is unique because gcd(c_j, d_j, N) = 1; with x_j c_j + y_j d_j = 1 (an integer
+        Bézout pair of the representative) it is λ = x_j c + y_j d.  j = −1, λ = 0 where
+        (c : d) is not in P¹(Z/NZ).  Needed for symbols with a character, where
+        [P, (λc : λd)] = χ(λ)·[P, (c : d)].
+        """
+        j = self.index(c, d)
+        x, y = self._bezout
+        jj = np.maximum(j, 0)
+        lam = np.mod(x[jj] * np.mod(c, self.N) + y[jj] * np.mod(d, self.N), self.N)
+        return j, np.where(j >= 0, lam, 0)
+
+    @property
+    def _bezout(self) -> tuple[np.ndarray, np.ndarray]:
+        if not hasattr(self, "_bez"):
+            from builder.symbols.heilbronn import _modinv
+
+            c, d = self.c, self.d
+            # x c + y d = 1: for c = 0 (then d = 1) take x = 0, y = 1; else y = d^{-1} mod c
+            m = np.abs(c)
+            zero = m == 0
+            y = np.where(zero, d, _modinv(np.where(zero, 1, d), np.where(zero, 1, m)))
+            x = np.where(zero, 0, (1 - y * d) // np.where(zero, 1, c))
+            self._bez = (x, y)
+        return self._bez
+
     def class_data(self) -> tuple[np.ndarray, np.ndarray]:
         """For each point, the pair (g, r) of its normal form."""
         g = np.where(self.c == 0, self.N, np.gcd(self.c, self.N))

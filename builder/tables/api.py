@@ -9,6 +9,7 @@
     t.spaces(weight=4)                          # one row per done unit
     t.newforms(level=(30, 60), weight=2, rational=True, root_number=-1)
     t.newforms(al={2: -1, 3: +1}, trace={5: (-2, 2)}, ap={7: 0})
+    t.newforms(char_order=(2, None), char_parity=-1)   # nontrivial odd characters
     t.eigenvalues(["37w2-1"], primes=[2, 3, 5])
     t.sql("SELECT al_pattern, count(*) FROM newforms GROUP BY 1")   # read-only
     t.duckdb()                                  # DuckDB views on the Parquet export
@@ -58,14 +59,21 @@ class Table:
         self.close()
 
     # ------------------------------------------------------------------ data
-    def spaces(self, weight: int | None = None, level=None) -> pd.DataFrame:
-        """Done units: dimensions, number of orbits, Sturm bound, seconds, bounds."""
-        df = self.source.spaces(weight)
-        if level is not None:
-            f = Filters.from_kwargs(level=level)
-            from builder.tables.find import in_ranges
+    def spaces(self, weight: int | None = None, level=None, char_order=None) -> pd.DataFrame:
+        """Done units: character, dimensions, number of orbits, Sturm bound, seconds, bounds.
 
-            df = df[[in_ranges(int(n), f.level) for n in df["level"]]].reset_index(drop=True)
+        ``level`` and ``char_order`` take ranges like the filters of ``newforms``.
+        """
+        df = self.source.spaces(weight)
+        f = Filters.from_kwargs(level=level, char_order=char_order)
+        from builder.tables.find import in_ranges
+
+        for name in ("level", "char_order"):
+            r = getattr(f, name)
+            if r is not None:
+                keep = pd.Series([in_ranges(int(n), r) for n in df[name]], index=df.index,
+                                 dtype=bool)  # fmt: skip
+                df = df[keep].reset_index(drop=True)
         return df
 
     def newforms(self, columns: str | list[str] = "all", **filters) -> pd.DataFrame:

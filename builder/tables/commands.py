@@ -160,6 +160,24 @@ def find_command(
         None, "--has-ap/--no-has-ap", help="Exact eigenvalues stored / not stored."
     ),
     label: list[str] = typer.Option([], "--label", help="Only these labels (repeatable)."),
+    char_order: str | None = typer.Option(
+        None, "--char-order", help='Order of the character χ: "1" (trivial), "2..6".'
+    ),
+    char_index: str | None = typer.Option(
+        None, "--char-index", help='Our index of χ\'s orbit at the level: "0" = trivial, "1-3".'
+    ),
+    trivial_char: bool | None = typer.Option(
+        None, "--trivial-char/--nontrivial-char", help="Only the trivial / nontrivial characters."
+    ),
+    char_conductor: str | None = typer.Option(
+        None, "--conductor", "--char-conductor", help='Conductor of χ: "4", "3..13".'
+    ),
+    char_parity: str | None = typer.Option(
+        None, "--char-parity", help="χ(−1): +1 / even or -1 / odd."
+    ),
+    rel_dim: str | None = typer.Option(
+        None, "--rel-dim", help='Relative dimension [K_f : Q(χ)]: "1", "2..4".'
+    ),
     columns: str | None = typer.Option(
         None, "--columns", help="Comma-separated newforms columns to show (default: a summary)."
     ),
@@ -173,6 +191,8 @@ def find_command(
 
     Ranges: 5, 2..10, ..10, 2.. (and 2-10 for levels/weights/dims); commas join
     ranges. Repeat --trace / --ap / --al for several conditions (all must hold).
+    Fricke, root number, Atkin–Lehner and L-value conditions never match orbits with
+    a nontrivial character (those are not stored for them).
     Example: nfb find --out output/quickstart --weight 2 --al 2:-1,3:+1 --trace 5:-2..2
     """
     from builder.pipeline.errors import BadInput
@@ -181,6 +201,7 @@ def find_command(
         find,
         parse_al,
         parse_indexed,
+        parse_parity,
         parse_ranges,
         parse_sign,
     )
@@ -206,6 +227,16 @@ def find_command(
             f.trace.extend(parse_indexed(t, "--trace", prime=False))
         f.cm, f.cm_disc, f.lzero, f.has_ap = cm, cm_disc, lzero, has_ap
         f.labels = list(label) or None
+
+        def unsigned(text: str | None, flag: str):
+            return parse_ranges(text, flag, signed=False) if text else None
+
+        f.char_order = unsigned(char_order, "--char-order")
+        f.char_index = unsigned(char_index, "--char-index")
+        f.trivial_char = trivial_char
+        f.char_conductor = unsigned(char_conductor, "--conductor")
+        f.char_parity = parse_parity(char_parity, "--char-parity") if char_parity else None
+        f.rel_dim = unsigned(rel_dim, "--rel-dim")
         cols = "default" if not columns else [c.strip() for c in columns.split(",") if c.strip()]
         if limit is None:
             limit = 50 if fmt == "table" else 0

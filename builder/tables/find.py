@@ -19,10 +19,20 @@ a union (``2,4`` or ``1-10,50-60``). Indexed conditions are ``INDEX:RANGE``
 (all must hold). Atkin–Lehner signs: ``--al 2:-1,5:+1`` = ε_2 = −1 and ε_5 = +1,
 which also requires 2 | N and 5 | N.
 
+Characters: ``char_order``, ``char_index``, ``rel_dim`` (ranges) and ``trivial_char``
+are columns of ``newforms``; ``char_conductor`` (ranges) and ``char_parity`` (±1) are
+columns of ``spaces``, asked through the orbit's unit (an ``EXISTS`` in SQL, a key
+look-up on the ``spaces`` dataset for Parquet).
+
 Orbits whose data cannot answer a condition are not returned: a trace condition
 on n > trace_bound, an a_p condition on an orbit without stored eigenvalues
 (dim > dim_cap) or with p > ap_bound, an L-value condition where ``lvalue_zero``
-is null (not decided by the math core).
+is null (not decided by the math core), a Fricke / root number / Atkin–Lehner
+condition on an orbit with a nontrivial character (those are null / empty). An
+a_p *range* condition asks for every embedding of a_p to be a real number in the
+range: for the trivial character K_f is totally real and that is decided exactly;
+for a nontrivial character K_f need not be, and the condition then matches only
+when a_p is rational (exact a_p values, ``--ap 3:0``, are always decided exactly).
 """
 
 from __future__ import annotations
@@ -56,8 +66,10 @@ DEFAULT_COLUMNS = [
     "label",
     "level",
     "weight",
+    "char_order",
     "orbit",
     "dim",
+    "rel_dim",
     "field_poly",
     "field_disc",
     "al_pattern",
@@ -146,6 +158,17 @@ def parse_sign(text: Any, what: str) -> int:
     return table[s]
 
 
+def parse_parity(text: Any, what: str) -> int:
+    """χ(−1): +1 / even or −1 / odd."""
+    s = str(text).strip().lower()
+    if s in ("even", "odd"):
+        return 1 if s == "even" else -1
+    try:
+        return parse_sign(s, what)
+    except BadInput:
+        raise BadInput(WHERE, what, f"a parity is +1 / even or -1 / odd, got {text!r}") from None
+
+
 def _check_prime(p: int, what: str) -> int:
     if not is_prime(p):
         raise BadInput(WHERE, what, f"{p} is not a prime")
@@ -227,10 +250,17 @@ class Filters:
     lzero: bool | None = None
     has_ap: bool | None = None
     labels: list[str] | None = None
+    char_order: Ranges | None = None  # order of the character χ
+    char_index: Ranges | None = None  # our index of χ's orbit at the level (0 = trivial)
+    trivial_char: bool | None = None  # char_order == 1 / > 1
+    char_conductor: Ranges | None = None  # conductor of χ (a spaces column)
+    char_parity: int | None = None  # χ(−1) (a spaces column)
+    rel_dim: Ranges | None = None  # [K_f : Q(χ)]
 
     API_KEYS = (
         "level weight dim degree disc rational fricke root_number al al_pattern ap trace "
-        "cm cm_disc lzero has_ap label labels"
+        "cm cm_disc lzero has_ap label labels char_order char_index trivial_char "
+        "char_conductor conductor char_parity rel_dim"
     ).split()
 
     @classmethod
@@ -263,15 +293,28 @@ class Filters:
         f.has_ap = kw.get("has_ap")
         labels = kw.get("labels", kw.get("label"))
         f.labels = [labels] if isinstance(labels, str) else (list(labels) if labels else None)
+        f.char_order = coerce_ranges(kw.get("char_order"), "char_order", signed=False)
+        f.char_index = coerce_ranges(kw.get("char_index"), "char_index", signed=False)
+        f.trivial_char = kw.get("trivial_char")
+        cond = kw.get("char_conductor", kw.get("conductor"))
+        f.char_conductor = coerce_ranges(cond, "char_conductor", signed=False)
+        par = kw.get("char_parity")
+        f.char_parity = None if par is None else parse_parity(par, "char_parity")
+        f.rel_dim = coerce_ranges(kw.get("rel_dim"), "rel_dim", signed=False)
         return f
 
     def describe(self) -> str:
         parts = []
-        for name in ("level", "weight", "dim", "disc"):
+        for name in (
+            "level", "weight", "dim", "rel_dim", "disc", "char_order", "char_index",
+            "char_conductor",
+        ):  # fmt: skip
             r = getattr(self, name)
             if r:
                 parts.append(f"{name} {_fmt_ranges(r)}")
-        for name in ("rational", "cm", "lzero", "has_ap"):
+        if self.char_parity is not None:
+            parts.append("even character" if self.char_parity > 0 else "odd character")
+        for name in ("rational", "cm", "lzero", "has_ap", "trivial_char"):
             v = getattr(self, name)
             if v is not None:
                 parts.append(name if v else f"not {name}")
@@ -355,6 +398,16 @@ def _sql_ranges(col, r: Ranges, integer: bool = True):
     return or_(*conds) if conds else false()
 
 
+def _sql_unit_where(f: Filters) -> list:
+    """Conditions on the orbit's unit (columns of spaces only)."""
+    w = []
+    if f.char_conductor:
+        w.append(_sql_ranges(_S.c.char_conductor, f.char_conductor))
+    if f.char_parity is not None:
+        w.append(_S.c.char_parity == f.char_parity)
+    return w
+
+
 def _sql_where(f: Filters) -> list:
     w = []
     if f.level:
@@ -363,6 +416,26 @@ def _sql_where(f: Filters) -> list:
         w.append(_sql_ranges(_N.c.weight, f.weight))
     if f.dim:
         w.append(_sql_ranges(_N.c.dim, f.dim))
+    if f.rel_dim:
+        w.append(_sql_ranges(_N.c.rel_dim, f.rel_dim))
+    if f.char_order:
+        w.append(_sql_ranges(_N.c.char_order, f.char_order))
+    if f.char_index:
+        w.append(_sql_ranges(_N.c.char_index, f.char_index))
+    if f.trivial_char is not None:
+        w.append(_N.c.char_order == 1 if f.trivial_char else _N.c.char_order > 1)
+    unit = _sql_unit_where(f)
+    if unit:
+        w.append(
+            exists(
+                select(_S.c.level).where(
+                    _S.c.level == _N.c.level,
+                    _S.c.weight == _N.c.weight,
+                    _S.c.char_index == _N.c.char_index,
+                    *unit,
+                )
+            )
+        )
     if f.rational is not None:
         w.append(_N.c.dim == 1 if f.rational else _N.c.dim > 1)
     if f.fricke is not None:
@@ -455,6 +528,14 @@ def _ds_filter(f: Filters) -> ds.Expression | None:
         conds.append(_ds_ranges(F("weight"), f.weight))
     if f.dim:
         conds.append(_ds_ranges(F("dim"), f.dim))
+    if f.rel_dim:
+        conds.append(_ds_ranges(F("rel_dim"), f.rel_dim))
+    if f.char_order:
+        conds.append(_ds_ranges(F("char_order"), f.char_order))
+    if f.char_index:
+        conds.append(_ds_ranges(F("char_index"), f.char_index))
+    if f.trivial_char is not None:
+        conds.append(F("char_order") == 1 if f.trivial_char else F("char_order") > 1)
     if f.rational is not None:
         conds.append(F("dim") == 1 if f.rational else F("dim") > 1)
     if f.fricke is not None:
@@ -510,14 +591,37 @@ def _list_at(table: pa.Table, i: int) -> pa.Array:
     return pc.list_element(_traces(table), i)
 
 
+def _unit_key(table: pa.Table) -> pa.Array:
+    """The key "level:weight:char_index" per row (for look-ups of the orbit's unit)."""
+    parts = [pc.cast(table[c], pa.string()) for c in ("level", "weight", "char_index")]
+    return pc.binary_join_element_wise(*parts, ":")
+
+
+def _ds_unit_filter(f: Filters) -> ds.Expression | None:
+    """Conditions on the unit (columns of the spaces dataset only)."""
+    expr = None
+    if f.char_conductor:
+        expr = _ds_ranges(ds.field("char_conductor"), f.char_conductor)
+    if f.char_parity is not None:
+        e = ds.field("char_parity") == f.char_parity
+        expr = e if expr is None else expr & e
+    return expr
+
+
 def _find_parquet(src: Source, f: Filters, cols: list[str]) -> pd.DataFrame:
     need = list(cols)
-    for extra in ("al_pattern", "dim"):
+    for extra in ("al_pattern", "dim", "level", "weight", "char_index"):
         if extra not in need:
             need.append(extra)
     if f.trace and "traces" not in need:
         need.append("traces")
     table = src.dataset("newforms").to_table(columns=parquet_columns(need), filter=_ds_filter(f))
+    unit_filter = _ds_unit_filter(f)
+    if unit_filter is not None and table.num_rows:
+        units = src.dataset("spaces").to_table(
+            columns=["level", "weight", "char_index"], filter=unit_filter
+        )
+        table = table.filter(pc.is_in(_unit_key(table), value_set=_unit_key(units)))
     for p, s in f.al.items():
         table = table.filter(
             pc.fill_null(
@@ -591,6 +695,11 @@ def _ap_matches(K: NumberField, coords: list[str], r: Ranges) -> bool:
     for lo, hi in r:
         if lo is not None and lo == hi:
             if K.rational_value(a) == lo:
+                return True
+        elif not K.is_totally_real():
+            # a nontrivial character: a_p need not be real; only a rational a_p is decided
+            q = K.rational_value(a)
+            if q is not None and (lo is None or q >= lo) and (hi is None or q <= hi):
                 return True
         elif K.all_in_interval(a, lo, hi):
             return True

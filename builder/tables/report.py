@@ -4,12 +4,13 @@ The page has no external reference at all: the plots (matplotlib, Agg backend)
 are embedded as base64 PNG ``data:`` URIs and the style sheet is inline, so the
 file can be mailed or opened offline. Plots:
 
-1. dimensions against level, per weight: the stored dim S_k and dim S_k^new as
-   points, the formulas of builder/checks/formulas.py drawn over them as lines;
+1. dimensions against level, per weight, trivial character: the stored dim S_k and
+   dim S_k^new as points, the formulas of builder/checks/formulas.py drawn over them
+   as lines;
 2. the distribution of orbit degrees [K_f : Q], per weight;
-3. for rational orbits without CM, the distribution of x_p = a_p / (2 p^((k−1)/2))
-   over primes p ∤ N (a_p = Tr a_p, p ≤ trace_bound) against the Sato–Tate
-   density (2/π)√(1 − x²);
+3. for rational orbits without CM and with the trivial character, the distribution
+   of x_p = a_p / (2 p^((k−1)/2)) over primes p ∤ N (a_p = Tr a_p, p ≤ trace_bound)
+   against the Sato–Tate density (2/π)√(1 − x²);
 4. Atkin–Lehner sign counts: newforms (Σ dim) per sign vector (ε_p for the primes
    p | N, increasing), grouped by the number of prime factors of N, per weight;
 5. compute time per unit against level on log–log axes with the least-squares
@@ -18,6 +19,15 @@ file can be mailed or opened offline. Plots:
 Every number printed in the page's tables is in ``ReportData.numbers`` (also
 embedded as JSON in ``<script type="application/json" id="nfb-report-data">``),
 computed from the same DataFrames as the plots.
+
+Characters: the space dimensions of a unit with a character χ are over Q(χ), orbit
+dimensions are absolute; the summary adds up ``char_degree · dim_new`` (and
+``char_degree · dim_cusp``) over the units, so that "Σ dim_new" equals the number of
+newforms (Σ orbit dims) for every table. Units with
+a nontrivial character are checked against the dimension formulas of Cohen–Oesterlé
+(builder/checks/char_formulas.py); a table "per character order" counts units, orbits
+and newforms per order of χ. Fricke signs, root numbers and Atkin–Lehner signs exist
+only for the trivial character (null / empty otherwise) and are counted over it.
 """
 
 from __future__ import annotations
@@ -73,15 +83,49 @@ def fit_exponent(levels, seconds) -> tuple[float, float] | None:
 
 
 def sato_tate_samples(forms: pd.DataFrame) -> dict[int, list[float]]:
-    """weight ↦ [a_p / (2 p^((k−1)/2))] over rational non-CM orbits and primes p ∤ N."""
+    """weight ↦ [a_p / (2 p^((k−1)/2))] over rational non-CM orbits with the trivial
+    character and primes p ∤ N."""
     out: dict[int, list[float]] = {}
-    rational = forms[(forms["dim"] == 1) & (~forms["is_cm"].astype(bool))]
+    trivial = forms["char_order"] == 1 if "char_order" in forms else True
+    rational = forms[(forms["dim"] == 1) & (~forms["is_cm"].astype(bool)) & trivial]
     for r in rational.itertuples():
         k, N = int(r.weight), int(r.level)
         xs = out.setdefault(k, [])
         for p in F.primes_up_to(len(r.traces)):
             if N % p:
                 xs.append(int(r.traces[p - 1]) / (2 * p ** ((k - 1) / 2)))
+    return out
+
+
+def _dims_match(sp: pd.DataFrame, k: int) -> int:
+    """Units whose dim_cusp and dim_new are those of the formulas ([DS]/[Mt] for the
+    trivial character, Cohen–Oesterlé and Martin's newform count for a character χ)."""
+    n = 0
+    for r in sp.itertuples():
+        N = int(r.level)
+        if int(r.char_index) == 0:
+            cusp, new = F.dim_cusp(N, k), F.dim_new(N, k)
+        else:
+            from builder.characters import character_orbit
+            from builder.checks import char_formulas as CF
+
+            chi = character_orbit(N, int(r.char_index))
+            cusp, new = CF.dim_cusp(N, k, chi), CF.dim_new(N, k, chi)
+        n += int(r.dim_cusp) == cusp and int(r.dim_new) == new
+    return n
+
+
+def _char_orders(sp: pd.DataFrame, nf: pd.DataFrame) -> dict[str, dict[str, int]]:
+    """order of χ ↦ units, units with newforms, orbits, newforms (Σ dim), by increasing order."""
+    out: dict[str, dict[str, int]] = {}
+    for m in sorted({int(x) for x in sp["char_order"]} | {int(x) for x in nf["char_order"]}):
+        s, f = sp[sp["char_order"] == m], nf[nf["char_order"] == m]
+        out[str(m)] = {
+            "units": int(len(s)),
+            "nonzero_units": int((s["dim_new"] > 0).sum()),
+            "orbits": int(len(f)),
+            "forms": int(f["dim"].sum()),
+        }
     return out
 
 
@@ -92,6 +136,8 @@ def collect(src: Source) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
             "label",
             "level",
             "weight",
+            "char_index",
+            "char_order",
             "orbit",
             "dim",
             "traces",
@@ -108,11 +154,7 @@ def collect(src: Source) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
     for k in weights:
         sp = spaces[spaces["weight"] == k]
         nf = forms[forms["weight"] == k]
-        dims_ok = sum(
-            int(r.dim_cusp) == F.dim_cusp(int(r.level), k)
-            and int(r.dim_new) == F.dim_new(int(r.level), k)
-            for r in sp.itertuples()
-        )
+        dims_ok = _dims_match(sp, k)
         degree = nf["dim"].value_counts().sort_index()
         al: dict[str, dict[str, int]] = {}
         for r in nf.itertuples():
@@ -129,8 +171,11 @@ def collect(src: Source) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
             "level_max": int(sp["level"].max()) if len(sp) else None,
             "orbits": int(len(nf)),
             "newforms": int(nf["dim"].sum()),
-            "dim_new": int(sp["dim_new"].sum()),
-            "dim_cusp": int(sp["dim_cusp"].sum()),
+            # absolute: over the Galois orbit of χ (dims of the spaces are over Q(χ))
+            "dim_new": int((sp["dim_new"] * sp["char_degree"]).sum()),
+            "dim_cusp": int((sp["dim_cusp"] * sp["char_degree"]).sum()),
+            "char_units": int((sp["char_order"] > 1).sum()),
+            "char_orbits": int((nf["char_order"] > 1).sum()),
             "rational_orbits": int((nf["dim"] == 1).sum()),
             "cm_orbits": int(nf["is_cm"].astype(bool).sum()),
             "lzero_orbits": int(sum(v is True or v == 1 for v in nf["lvalue_zero"])),
@@ -142,6 +187,7 @@ def collect(src: Source) -> tuple[pd.DataFrame, pd.DataFrame, dict]:
             "degree_counts": {str(int(d)): int(c) for d, c in degree.items()},
             "al_counts": dict(sorted(al.items(), key=lambda kv: (len(kv[0]), kv[0]))),
             "compute_seconds": None if secs.isna().all() else round(float(secs.sum()), 3),
+            "char_orders": _char_orders(sp, nf),
         }
         num["per_weight"][str(k)] = w
     st = sato_tate_samples(forms)
@@ -179,7 +225,7 @@ def _plots(spaces: pd.DataFrame, forms: pd.DataFrame, num: dict) -> ReportData:
     # 1. dimensions against level, with the formulas
     fig, axes = plt.subplots(1, ncol, figsize=(5.2 * ncol, 3.8), squeeze=False)
     for ax, k in zip(axes[0], weights, strict=True):
-        sp = spaces[spaces["weight"] == k]
+        sp = spaces[(spaces["weight"] == k) & (spaces["char_index"] == 0)]
         if len(sp):
             lo, hi = int(sp["level"].min()), int(sp["level"].max())
             xs = np.arange(lo, hi + 1)
@@ -207,7 +253,7 @@ def _plots(spaces: pd.DataFrame, forms: pd.DataFrame, num: dict) -> ReportData:
             ax.scatter(
                 sp["level"], sp["dim_new"], s=9, color="#b3410e", label="stored dim_new", zorder=3
             )
-        ax.set_title(f"weight {k}: dimensions against level")
+        ax.set_title(f"weight {k}, trivial character: dimensions against level")
         ax.set_xlabel("level N")
         ax.set_ylabel("dimension")
         ax.legend(fontsize=7, loc="upper left")
@@ -249,7 +295,7 @@ def _plots(spaces: pd.DataFrame, forms: pd.DataFrame, num: dict) -> ReportData:
             lw=1.6,
             label="Sato–Tate (2/π)√(1−x²)",
         )
-        ax.set_title(f"weight {k}: rational orbits without CM, p ∤ N")
+        ax.set_title(f"weight {k}: rational orbits without CM, χ = 1, p ∤ N")
         ax.set_xlabel("x = a_p / (2 p^((k−1)/2))")
         ax.set_ylabel("density")
         ax.set_xlim(-1, 1)
@@ -323,21 +369,23 @@ img { max-width: 100%; height: auto; border: 1px solid #eee; }
 """
 
 ROWS = [
-    ("units", "units (N, k) stored as done"),
+    ("units", "units (N, k, χ) stored as done"),
+    ("char_units", "units with a nontrivial character χ"),
     ("levels", "levels"),
     ("orbits", "Galois orbits of newforms"),
+    ("char_orbits", "orbits with a nontrivial character χ"),
     ("newforms", "newforms (Σ orbit dimensions)"),
-    ("dim_new", "Σ dim_new of the spaces"),
-    ("dim_cusp", "Σ dim_cusp of the spaces"),
+    ("dim_new", "Σ char_degree · dim_new of the spaces"),
+    ("dim_cusp", "Σ char_degree · dim_cusp of the spaces"),
     ("units_matching_formulas", "units whose dim_cusp and dim_new match the formulas"),
     ("rational_orbits", "rational orbits (dim 1)"),
     ("max_degree", "largest orbit degree"),
     ("cm_orbits", "orbits with CM"),
-    ("root_minus_orbits", "orbits with root number −1"),
+    ("root_minus_orbits", "orbits with root number −1 (trivial χ)"),
     ("lzero_orbits", "orbits with L(f, k/2) = 0"),
-    ("fricke_plus_forms", "newforms with Fricke sign +1"),
-    ("fricke_minus_forms", "newforms with Fricke sign −1"),
-    ("sato_tate_samples", "Sato–Tate sample size (a_p, p ∤ N, rational non-CM)"),
+    ("fricke_plus_forms", "newforms with Fricke sign +1 (trivial χ)"),
+    ("fricke_minus_forms", "newforms with Fricke sign −1 (trivial χ)"),
+    ("sato_tate_samples", "Sato–Tate sample size (a_p, p ∤ N, rational non-CM, trivial χ)"),
     ("growth_exponent", "fitted growth exponent b of compute time ≈ a·N^b"),
     ("compute_seconds", "total compute seconds"),
 ]
@@ -396,6 +444,29 @@ def render_html(data: ReportData, title: str) -> str:
                 f'<tr><td class="name">{html.escape(vec)}</td>'
                 + _cell(f"w{k}.al.{vec}.forms", c["forms"])
                 + _cell(f"w{k}.al.{vec}.orbits", c["orbits"])
+                + "</tr>"
+            )
+        parts.append("</tbody></table>")
+
+    parts.append("<h2>Per character order</h2>")
+    parts.append(
+        "<p>Units, units with newforms, orbits and newforms (Σ dim, absolute) per order of "
+        "the character χ (order 1 = the trivial character).</p>"
+    )
+    for k in weights:
+        co = num["per_weight"][str(k)]["char_orders"]
+        parts.append(
+            f'<table class="char-orders" data-weight="{k}"><thead><tr>'
+            f'<th class="name">weight {k}: order of χ</th><th>units</th>'
+            "<th>units with newforms</th><th>orbits</th><th>newforms</th></tr></thead><tbody>"
+        )
+        for m, c in co.items():
+            parts.append(
+                f'<tr><td class="name">{html.escape(m)}</td>'
+                + "".join(
+                    _cell(f"w{k}.char.{m}.{key}", c[key])
+                    for key in ("units", "nonzero_units", "orbits", "forms")
+                )
                 + "</tr>"
             )
         parts.append("</tbody></table>")

@@ -12,6 +12,11 @@ The loaders return pandas DataFrames with the *database* column set and types
 (list columns as Python lists; the Parquet ``_text`` overflow twins folded back
 into their list column), so every consumer sees the same frame whatever the
 source. Only units with status 'done' are read, like the export.
+
+Character columns (schema v3): ``spaces`` has char_order, char_conductor, char_parity,
+char_number, char_degree after char_index; ``newforms`` has char_order (after char_index)
+and rel_dim (after dim); fricke_sign / root_number are null (None / NaN in the frame)
+for a nontrivial character.
 """
 
 from __future__ import annotations
@@ -37,6 +42,11 @@ SPACE_COLUMNS = [
     "level",
     "weight",
     "char_index",
+    "char_order",
+    "char_conductor",
+    "char_parity",
+    "char_number",
+    "char_degree",
     "dim_cusp",
     "dim_new",
     "dim_old",
@@ -171,14 +181,14 @@ class Source:
     def eigenvalues(
         self, labels: list[str] | None = None, primes: list[int] | None = None
     ) -> pd.DataFrame:
-        """Exact a_p rows (label, level, weight, p, coords as a list of rational strings)."""
-        cols = ["label", "level", "weight", "p", "coords"]
+        """Exact a_p rows (label, level, weight, char_index, p, coords as rational strings)."""
+        cols = ["label", "level", "weight", "char_index", "p", "coords"]
         if self.is_db:
             E, N = Eigenvalue.__table__, Newform.__table__
             from builder.tables.find import unit_done
 
             q = (
-                select(E.c.label, N.c.level, N.c.weight, E.c.p, E.c.coords)
+                select(E.c.label, N.c.level, N.c.weight, N.c.char_index, E.c.p, E.c.coords)
                 .select_from(N.join(E, E.c.label == N.c.label))
                 .where(unit_done())
             )
@@ -186,7 +196,7 @@ class Source:
                 q = q.where(E.c.label.in_(list(labels)))
             if primes is not None:
                 q = q.where(E.c.p.in_([int(p) for p in primes]))
-            q = q.order_by(N.c.weight, N.c.level, N.c.orbit, E.c.p)
+            q = q.order_by(N.c.weight, N.c.level, N.c.char_index, N.c.orbit, E.c.p)
             with self.engine().connect() as conn:
                 rows = conn.execute(q).mappings().all()
             df = pd.DataFrame([dict(r) for r in rows], columns=cols)
@@ -198,10 +208,11 @@ class Source:
                 e = ds.field("p").isin([int(p) for p in primes])
                 flt = e if flt is None else flt & e
             table = self.dataset("eigenvalues").to_table(
-                filter=flt, columns=["label", "level", "weight", "orbit", "p", "coords"]
+                filter=flt,
+                columns=["label", "level", "weight", "char_index", "orbit", "p", "coords"],
             )
             df = table.to_pandas()
-            df = df.sort_values(["weight", "level", "orbit", "p"], kind="stable")
+            df = df.sort_values(["weight", "level", "char_index", "orbit", "p"], kind="stable")
             df["coords"] = [list(c) for c in df["coords"]]
             df = df[cols]
         return df.reset_index(drop=True)

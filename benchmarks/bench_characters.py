@@ -1,0 +1,158 @@
+"""Benchmark (issue 7): every character orbit in the box N·k² ≤ 4000 — how long with 2 workers?
+
+    python benchmarks/bench_characters.py               # sample of 60 units, records
+    python benchmarks/bench_characters.py --count 20 --cap 120 --no-record
+
+The box: every weight k ≥ 2 and level N with N·k² ≤ 4000, every Galois orbit of Dirichlet
+characters mod N with χ(−1) = (−1)^k (the trivial one included), full units with the
+default bounds of a job (trace_bound 1000, exact a_p to 100 for orbits of dimension ≤ 20).
+A uniform random sample of the units (fixed seed) is computed by two processes at once,
+as the two workers of a real run share the machine; mean × units / 2 projects the wall
+time of the whole box with 2 workers.  Numbers go to the "## Characters (issue 7)"
+section of benchmarks/README.md with the machine and the date.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import platform
+import random
+import statistics
+import subprocess
+import sys
+import threading
+import time
+from datetime import date
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+SECTION = "## Characters (issue 7)"
+BOX = 4000
+SEED = 20261202
+ENV = {**os.environ, "PYTHONHASHSEED": "0", "OPENBLAS_NUM_THREADS": "1",
+       "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
+
+
+def box_units() -> list[tuple[int, int, int, int]]:
+    """(N, k, j, order) for every unit of the box, parity matched."""
+    sys.path.insert(0, str(ROOT))
+    from builder.pipeline.jobs import character_table
+
+    out = []
+    k = 2
+    while 4 * k * k <= 4 * BOX:
+        for N in range(1, BOX // (k * k) + 1):
+            for j, order, parity in character_table(N):
+                if (parity == 1) == (k % 2 == 0):
+                    out.append((N, k, j, order))
+        k += 1
+    return out
+
+
+def _unit(N: int, k: int, j: int) -> dict:
+    sys.path.insert(0, str(ROOT))
+    from builder.forms.record import Params, compute_unit
+
+    t0 = time.perf_counter()
+    R = compute_unit(N, k, Params(), char_index=j)
+    return {"t": time.perf_counter() - t0, "dim_new": R.dim_new, "orbits": R.num_orbits,
+            "maxd": max([f.dim for f in R.newforms] or [0])}
+
+
+def _run_half(units: list, cap: float, out: list) -> None:
+    """One worker: the units one after another, each in a fresh process stopped at ``cap``
+    seconds (then counted as ``cap``: the projection is a lower bound)."""
+    for N, k, j, order in units:
+        row = {"N": N, "k": k, "j": j, "order": order}
+        try:
+            r = subprocess.run([sys.executable, __file__, "--unit", f"{N},{k},{j}"],
+                               capture_output=True, text=True, env=ENV, timeout=cap)
+            if r.returncode:
+                raise SystemExit(f"{N}w{k}c{j} failed:\n{r.stderr}")
+            row.update(json.loads(r.stdout.strip().splitlines()[-1]), capped=False)
+        except subprocess.TimeoutExpired:
+            row.update(t=cap, dim_new=None, orbits=None, maxd=None, capped=True)
+        print(f"  {N}w{k}c{j} (order {order}): {row['t']:.2f} s"
+              + (" (capped)" if row["capped"] else ""), flush=True)
+        out.append(row)
+
+
+def main(argv: list[str]) -> None:
+    if argv and argv[0] == "--unit":
+        print(json.dumps(_unit(*map(int, argv[1].split(",")))))
+        return
+    count = int(argv[argv.index("--count") + 1]) if "--count" in argv else 60
+    cap = float(argv[argv.index("--cap") + 1]) if "--cap" in argv else 300.0
+    record = "--no-record" not in argv
+    units = box_units()
+    rng = random.Random(SEED)
+    sample = sorted(rng.sample(units, count))
+    t0 = time.perf_counter()
+    timed: list[dict] = []
+    threads = [threading.Thread(target=_run_half, args=(h, cap, timed))
+               for h in (sample[0::2], sample[1::2])]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    wall = time.perf_counter() - t0
+    mean = statistics.mean(x["t"] for x in timed)
+    proj = mean * len(units) / 2
+    trivial = sum(1 for u in units if u[2] == 0)
+    capped = sum(1 for x in timed if x["capped"])
+    print(f"box N·k² ≤ {BOX}: {len(units)} units ({trivial} trivial character); sample "
+          f"{count}: mean {mean:.2f} s, median {statistics.median(x['t'] for x in timed):.2f}"
+          f" s, {capped} capped at {cap:.0f} s → 2 workers ≥ {proj / 3600:.2f} h; "
+          f"sample wall {wall:.0f} s")
+    if record:
+        _write(units, timed, mean, proj, wall, trivial, cap, capped)
+
+
+def _write(units, timed, mean, proj, wall, trivial, cap, capped) -> None:
+    load = os.getloadavg()
+    slow = sorted(timed, key=lambda x: -x["t"])[:6]
+    by_order: dict[str, list[float]] = {}
+    for x in timed:
+        key = "1" if x["order"] == 1 else "2" if x["order"] == 2 else "3–6" if x[
+            "order"] <= 6 else "> 6"
+        by_order.setdefault(key, []).append(x["t"])
+    lines = [SECTION, "",
+             f"Measured {date.today().isoformat()} on {platform.node()} ({os.cpu_count()} cores)"
+             f", Python {platform.python_version()}, one thread per process; load average at "
+             f"the end {load[0]:.2f}. Command: `python benchmarks/bench_characters.py`.", "",
+             f"The box N·k² ≤ {BOX}, every character orbit with χ(−1) = (−1)^k: "
+             f"**{len(units)} units** ({trivial} with the trivial character). Full units "
+             "(traces to 1000, exact a_p to 100 for dim ≤ 20). A uniform sample of "
+             f"{len(timed)} units (seed {SEED}) computed two at a time: mean {mean:.2f} s, "
+             f"median {statistics.median(x['t'] for x in timed):.2f} s per unit, sample wall "
+             f"{wall:.0f} s; each unit in a fresh process stopped after {cap:.0f} s "
+             f"({capped} of the sample were, counted as {cap:.0f} s). Projected box with 2 "
+             f"workers ≈ mean × units / 2 = **{proj / 3600:.2f} h**"
+             + (" (a lower bound: capped units)" if capped else "") + " (goal ≤ 8 h).", "",
+             "| character order | sample units | median s | mean s |", "|---|---|---|---|"]
+    for key in ("1", "2", "3–6", "> 6"):
+        if key in by_order:
+            ts = by_order[key]
+            lines.append(f"| {key} | {len(ts)} | {statistics.median(ts):.2f} | "
+                         f"{statistics.mean(ts):.2f} |")
+    lines += ["", "Slowest in the sample: " + ", ".join(
+        f"{x['N']}w{x['k']}c{x['j']} (order {x['order']}, dim new {x['dim_new']}) {x['t']:.1f} s"
+        + (" capped" if x["capped"] else "")
+        for x in slow) + ".", ""]
+    path = HERE / "README.md"
+    text = path.read_text()
+    block = "\n".join(lines) + "\n"
+    if SECTION in text:
+        head, rest = text.split(SECTION, 1)
+        nxt = rest.find("\n## ")
+        tail = rest[nxt + 1:] if nxt >= 0 else ""
+        text = head + block + ("\n" + tail if tail else "")
+    else:
+        text = text.rstrip("\n") + "\n\n" + block
+    path.write_text(text)
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])

@@ -1,0 +1,835 @@
+"""Newform orbits of S_k(Γ0(N), χ) for a nontrivial character orbit [χ], modulo primes.
+
+A *unit* is (N, k, [χ]): the Galois orbit of χ (the characters χ^a, a ∈ (Z/mZ)^×,
+m = order χ).  A Galois orbit of newforms with character in [χ] has absolute degree
+d = [K_f : Q] and meets every S_k(N, χ^a) in d/φ(m) forms (relative degree over Q(χ)).
+Everything is computed modulo primes ℓ ≡ 1 (mod m), < 2^21, for every conjugate χ^a
+(builder.symbols.charspace; ζ_m ↦ ω_ℓ^a), and made exact by certificates and bounds:
+
+1. **Certified subspaces.**  In M = M_k(N, χ^a)⁺ mod ℓ: the cuspidal part S = ker(boundary)
+   and the new part V = S ∩ ker β_1 ∩ ker β_p (degeneracy maps to N/p, cond χ | N/p,
+   [St] §8.6).  Dimensions only grow modulo ℓ; a prime is used only when dim S and dim V
+   equal the Cohen–Oesterlé dimension of S_k(N, χ) and its new part
+   (builder.checks.char_formulas), so that S and V mod ℓ are the reductions of the exact
+   subspaces ([St] Thm 8.x: the +1 cuspidal symbols are S_k(N, χ) as a Hecke module).
+2. **Exact absolute characteristic polynomials.**  Π_a charpoly(T_q | V(χ^a)) ∈ Z[x]: its
+   roots are the σ(a_q), |σ(a_q)| ≤ 2q^((k−1)/2) (Deligne), so CRT past 2(1 + ρ)^deg gives
+   it exactly.  Its irreducible factors of multiplicity one are the orbits; repeated ones
+   are refined with the next prime on their primary parts (strong multiplicity one), as for
+   the trivial character.  The degrees add up to φ(m)·dim V (checked).
+3. **Eigen-functionals.**  For an orbit (F, the operator T_q whose charpoly it is) and a
+   conjugate a: f_a = gcd(F mod ℓ, charpoly_a) is its relative factor; the functionals of
+   the orbit are the kernel of f_a(T_q^t) on M*, cut further by g(T_{q'}^t) (g the
+   charpoly of T_{q'} on the orbit's subspace) until its dimension is deg f_a — a kernel
+   that can only be too big, never too small, modulo ℓ, so equality certifies it.  An
+   eigenvector over F_ℓ[x]/(f_a) gives a_p = φ(T_p v)/φ(v) by one Heilbronn sum.
+4. **Exact numbers.**  Tr_{K/Q} a_n = Σ_a Tr(a_n over F_ℓ[x]/(f_a)) lifted past Deligne's
+   bound d·σ0(n)·n^((k−1)/2); a_p ∈ K = Q[x]/(F) (x = a_q generates K since F is
+   irreducible of degree d) from the CRT of its images in the F_ℓ[x]/(f_a), through
+   b = a_p·F'(x) with the bound of builder.forms.eigen (valid for complex roots too).
+Atkin–Lehner signs, the root number and L-values are not recorded for a nontrivial χ
+(W_Q does not act on S_k(N, χ) by ±1 in general): those fields are None.
+"""
+
+from __future__ import annotations
+
+import time
+from functools import cached_property, lru_cache
+from math import comb, gcd, isqrt
+
+import flint
+import numpy as np
+
+from builder.arith import factor, iter_primes, prime_divisors, primes_up_to, sturm_bound
+from builder.characters import CharacterOrbit, primes_one_mod
+from builder.forms.eigen import _crt, _h_matrix, deligne_trace_bound
+from builder.forms.fields import NumberField, canonical_polynomial, change_basis_matrix
+from builder.forms.newspace import _kernel_mod
+from builder.forms.record import NewformRecord, Params, SpaceRecord, make_label
+from builder.linalg_modp import matmul_mod, rref_mod
+from builder.symbols.charspace import CharSpace, char_space, induced_values
+
+FIELD_BOUND = 50
+Label = tuple  # refinement path: ((q, F coefficients, e), ...)
+
+
+# -- small modular helpers --------------------------------------------------------------------
+
+
+def _nmod(coeffs, ell: int) -> flint.nmod_poly:
+    return flint.nmod_poly([int(c) % ell for c in coeffs], ell)
+
+
+def _charpoly_mod(A: np.ndarray, ell: int) -> flint.nmod_poly:
+    s = A.shape[0]
+    if s == 0:
+        return flint.nmod_poly([1], ell)
+    M = flint.nmod_mat(s, s, np.mod(A, ell).astype(np.int64).ravel().tolist(), ell)
+    return M.charpoly()
+
+
+def _poly_at(f: flint.nmod_poly, A: np.ndarray, ell: int) -> np.ndarray:
+    s = A.shape[0]
+    R = np.zeros((s, s))
+    for c in reversed([int(x) for x in f.coeffs()]):
+        R = matmul_mod(R, A, ell)
+        R[np.arange(s), np.arange(s)] += c
+    return np.mod(R, ell)
+
+
+def _rows_basis(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:
+    """rref rows of the row space of A (mod ℓ) and their pivots."""
+    if A.shape[0] == 0:
+        return np.zeros((0, A.shape[1])), []
+    R, piv = rref_mod(np.mod(A, ell), ell)
+    return R, piv
+
+
+def _left_kernel(A: np.ndarray, ell: int) -> np.ndarray:
+    """Rows spanning {x : x·A = 0} modulo ℓ."""
+    K, _ = _kernel_mod(np.ascontiguousarray(A.T), ell)
+    return np.ascontiguousarray(K.T)
+
+
+def _restrict_rows(V: np.ndarray, piv: list[int], T: np.ndarray, ell: int) -> np.ndarray:
+    """Matrix of T (row action) on the row space of V (rref, pivots piv)."""
+    return matmul_mod(V, T, ell)[:, piv]
+
+
+def _power(g: flint.fmpz_poly, e: int) -> flint.fmpz_poly:
+    out = flint.fmpz_poly([1])
+    for _ in range(e):
+        out *= g
+    return out
+
+
+# -- one conjugate space modulo one prime -------------------------------------------------------
+
+
+class _Conj:
+    """M_k(N, χ^a)⁺ modulo ℓ with its certified new part V (rows, rref)."""
+
+    def __init__(self, unit: CharUnit, ell: int, a: int) -> None:
+        self.unit, self.ell, self.a = unit, ell, a
+        N, k, chi = unit.N, unit.k, unit.chi
+        self.M: CharSpace = char_space(N, k, chi, 1, ell, conj=a)
+        M = self.M
+        self.ok = False
+        self.dim_s = 0
+        if M.dim == 0:
+            self.V = np.zeros((0, 0))
+            self.piv: list[int] = []
+            self.ok = unit.dim_cusp == 0
+            return
+        B = M.boundary()
+        S = _left_kernel(B, ell) if B.shape[1] else np.eye(M.dim)
+        self.dim_s = S.shape[0]
+        if S.shape[0] != unit.dim_cusp:
+            return
+        conds = []
+        for p in prime_divisors(N):
+            if (N // p) % chi.conductor:
+                continue
+            tgt = CharSpace(N // p, k, induced_values(M.values, N, N // p), 1, ell)
+            if tgt.dim == 0:
+                continue
+            for t in (1, p):
+                conds.append(M.degeneracy(tgt, t))
+        if conds and S.shape[0]:
+            D = matmul_mod(S, np.concatenate(conds, axis=1), ell)
+            Y = _left_kernel(D, ell)
+            V = matmul_mod(Y, S, ell) if Y.shape[0] else np.zeros((0, M.dim))
+        else:
+            V = S
+        self.V, self.piv = _rows_basis(V, ell)
+        self.ok = self.V.shape[0] == unit.dim_new
+
+    @cached_property
+    def _ops(self) -> dict:
+        return {}
+
+    def op(self, q: int) -> np.ndarray:
+        """T_q on V (row action, V's rref coordinates)."""
+        if q not in self._ops:
+            self._ops[q] = _restrict_rows(self.V, self.piv, self.M.hecke(q), self.ell)
+        return self._ops[q]
+
+    def combo(self, combo: tuple) -> np.ndarray:
+        """T = Σ c_q T_q + c·⟨g⟩ on V (row action); ⟨g⟩ acts on S_k(N, χ^a) by χ^a(g)."""
+        terms, (g, c) = combo
+        n = self.V.shape[0]
+        A = np.zeros((n, n))
+        for q, cq in terms:
+            A = np.mod(A + cq * self.op(q), self.ell)
+        A[np.arange(n), np.arange(n)] += c * int(self.M.values[g % self.unit.N])
+        return np.mod(A, self.ell)
+
+    def combo_full(self, combo: tuple) -> np.ndarray:
+        """The same operator on the whole symbol space M (row action)."""
+        terms, (g, c) = combo
+        n = self.M.dim
+        A = np.zeros((n, n))
+        for q, cq in terms:
+            A = np.mod(A + cq * self.M.hecke(q), self.ell)
+        A[np.arange(n), np.arange(n)] += c * int(self.M.values[g % self.unit.N])
+        return np.mod(A, self.ell)
+
+
+# -- the unit ---------------------------------------------------------------------------------
+
+
+class CharOrbit:
+    """An absolute Galois orbit: the irreducible factor F (degree d) of the absolute
+    characteristic polynomial of the unit's splitting operator T (``CharUnit.combo``)."""
+
+    def __init__(self, poly: flint.fmpz_poly) -> None:
+        self.poly = poly
+
+    @property
+    def dim(self) -> int:
+        return self.poly.degree()
+
+
+class CharUnit:
+    """S_k(Γ0(N), χ) for the character orbit of χ: splitting and eigen-data (module doc)."""
+
+    def __init__(self, N: int, k: int, chi: CharacterOrbit) -> None:
+        from builder.checks.char_formulas import dim_cusp, dim_new
+
+        self.N, self.k, self.chi = N, k, chi
+        self.dim_cusp = dim_cusp(N, k, chi)
+        self.dim_new = dim_new(N, k, chi)
+        self.conjugates = chi.conjugates()
+        self.phi_m = len(self.conjugates)
+        self._states: dict[tuple[int, int], _Conj] = {}
+        self._good: list[int] = []  # primes ℓ where every conjugate is certified
+        # ⟨g⟩ with χ(g) of order m: its scalar generates Q(χ)
+        self.gen = next(x for x in range(1, max(N, 2)) if gcd(x, N) == 1 and (
+            chi.order == 1 or gcd(chi.exponent(x), chi.order) == 1))
+
+    # -- primes ----------------------------------------------------------------------------------
+    def conj(self, ell: int, a: int) -> _Conj:
+        if (ell, a) not in self._states:
+            self._states[(ell, a)] = _Conj(self, ell, a)
+        return self._states[(ell, a)]
+
+    def primes(self, limit: int = 80):
+        """Primes ℓ ≡ 1 (mod m) at which every conjugate's new part is certified (an error
+        after ``limit`` primes that are not)."""
+        yield from list(self._good)
+        tried = 0
+        for ell in primes_one_mod(self.chi.order):
+            if ell in self._good:
+                continue
+            if all(self.conj(ell, a).ok for a in self.conjugates):
+                self._good.append(ell)
+                yield ell
+            else:
+                for a in self.conjugates:
+                    self._states.pop((ell, a), None)
+                tried += 1  # only failures count: a wrong dimension shows up at every ℓ
+                if tried > limit:
+                    raise ArithmeticError(f"level {self.N}: no certified prime for "
+                                          f"character {self.chi.index}")
+
+    def good_hecke_primes(self) -> list[int]:
+        """Primes q ∤ N up to the Sturm bound, and at least 8 of them: orbits that differ
+        only at primes beyond the bound (as at N = 12, k = 3) must still be separated."""
+        B = max(sturm_bound(self.N, self.k), 2)
+        out = [q for q in primes_up_to(max(B, 3)) if self.N % q]
+        for q in iter_primes(10**6):
+            if len(out) >= 8:
+                break
+            if q > B and self.N % q:
+                out.append(q)
+        return out
+
+    # -- the splitting operator and its exact absolute characteristic polynomial -----------------
+    def _combos(self):
+        """Candidate operators T = Σ c_q T_q + c⟨g⟩, in a fixed order (ours)."""
+        qs = self.good_hecke_primes()
+        g = self.gen
+        for r in range(1, len(qs) + 1):
+            for pattern in ((1,) * r, tuple(range(1, r + 1))):
+                for c in (1, 2, 3):
+                    yield (tuple(zip(qs[:r], pattern, strict=True)), (g, c))
+
+    def root_bound(self, combo: tuple) -> int:
+        """A bound on |σ(a_T)|: Σ |c_q|·2q^((k−1)/2) + |c| (Deligne)."""
+        terms, (_, c) = combo
+        return sum(abs(cq) * (isqrt(4 * q ** (self.k - 1)) + 1) for q, cq in terms) + abs(c)
+
+    def charpoly(self, combo: tuple, which=None) -> flint.fmpz_poly:
+        """Π_a charpoly(T | V(χ^a)) ∈ Z[x] (or of T_q alone: which = q), exactly.
+
+        Two stages.  The relative charpoly P ∈ Z[ζ_m][x] (on V(χ), degree dim_new) is
+        lifted from its images at the conjugates, ζ_m ↦ ω_ℓ^a, which determine it modulo
+        ℓ (ℓ splits completely in Q(ζ_m)): the power-basis coordinates of a coefficient c
+        are V⁻¹·(σ_a(c))_a, V the complex Vandermonde of the ζ_m^a, so they are bounded by
+        ‖V⁻¹‖_∞·max_a |σ_a(c)| ≤ ‖V⁻¹‖_∞·C(d, j)ρ^j (Deligne, ρ = ``root_bound``).
+        The absolute polynomial is then the norm Π_a σ_a(P), by CRT over further primes
+        at the cost of polynomial products only."""
+        key = (combo, which)
+        cache = self.__dict__.setdefault("_charpolys", {})
+        if key in cache:
+            return cache[key]
+        rho = self.root_bound(combo) if which is None else isqrt(4 * which ** (self.k - 1)) + 1
+        d, m = self.dim_new, self.chi.order
+        conj = self.conjugates
+        need = 2 * _vinv_norm(m) * (1 + rho) ** d + 1
+        res, mods, prod = [], [], 1
+        for ell in self.primes():
+            vals = []
+            for a in conj:
+                st = self.conj(ell, a)
+                P = _charpoly_mod(st.combo(combo) if which is None else st.op(which), ell)
+                vals.append([int(c) for c in P.coeffs()])
+            res.append(_coords_mod(np.array(vals, dtype=np.int64).T, m, conj, ell))
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        rel = [[_sym(_crt([r[j][i] for r in res], mods), prod) for i in range(len(conj))]
+               for j in range(d + 1)]
+        out = _norm_poly(rel, m, conj, rho, d)
+        cache[key] = out
+        return out
+
+    @cached_property
+    def split(self) -> tuple[tuple, list[CharOrbit]]:
+        """(T, orbits): the first T whose absolute charpoly is squarefree; its irreducible
+        factors are then in bijection with the Galois orbits of newforms (equal factors
+        would be needed for two orbits with the same minimal polynomial of a_T)."""
+        if self.dim_new == 0:
+            return None, []
+        for combo in self._combos():
+            P = self.charpoly(combo)
+            _, facs = P.factor()
+            if all(e == 1 for _, e in facs):
+                orbits = [CharOrbit(g) for g, _ in sorted(
+                    facs, key=lambda fe: (fe[0].degree(), [int(c) for c in fe[0].coeffs()]))]
+                return combo, orbits
+        raise ArithmeticError(f"level {self.N} weight {self.k} character {self.chi.index}: "
+                              "no combination of Hecke operators split the new part")
+
+    @property
+    def orbits(self) -> list[CharOrbit]:
+        return self.split[1]
+
+    # -- eigen-data modulo ℓ --------------------------------------------------------------------
+    def _eigen(self, ell: int, orbit: CharOrbit):
+        """Per conjugate a: (f_a, φ on the free generators (n × d_a), v, φ(v)⁻¹) or None."""
+        cache = self.__dict__.setdefault("_eig", {})
+        key = (ell, id(orbit))
+        if key in cache:
+            return cache[key]
+        combo = self.split[0]
+        F = orbit.poly
+        Fl = _nmod(F.coeffs(), ell)
+        rest = _nmod((self.charpoly(combo) // F).coeffs(), ell)
+        out: dict | None = {}
+        if Fl.gcd(Fl.derivative()).degree() != 0 or Fl.gcd(rest).degree() != 0:
+            out = None
+        for a in self.conjugates if out is not None else ():
+            st = self.conj(ell, a)
+            A = st.combo(combo)
+            fa = Fl.gcd(_charpoly_mod(A, ell))
+            if fa.degree() == 0:
+                out = None
+                break
+            fa = fa * flint.nmod_poly([pow(int(fa.coeffs()[-1]), -1, ell)], ell)
+            piece = self._functionals(st, combo, A, fa)
+            if piece is None:
+                out = None
+                break
+            out[a] = piece
+        cache[key] = out
+        return out
+
+    def _functionals(self, st: _Conj, combo: tuple, A: np.ndarray, fa):
+        """The orbit's functionals on M as an eigenvector over F_ℓ[x]/(f_a) (module doc)."""
+        ell, M = st.ell, st.M
+        d = fa.degree()
+        # the orbit inside V: rows W_f (in M coordinates) = ker f_a(T) on V
+        Kf = _left_kernel(_poly_at(fa, A, ell), ell)
+        Wf, wpiv = _rows_basis(matmul_mod(Kf, st.V, ell), ell)
+        if Wf.shape[0] != d:
+            return None
+        # its functionals: columns U with f_a(T)·U = 0 on M*, cut further by other operators
+        T = st.combo_full(combo)
+        U, _ = _kernel_mod(_poly_at(fa, np.ascontiguousarray(T), ell), ell)
+        for q in self.good_hecke_primes():
+            if U.shape[1] <= d:
+                break
+            g = _charpoly_mod(_restrict_rows(Wf, wpiv, M.hecke(q), ell), ell)
+            Gq = _poly_at(g, np.ascontiguousarray(M.hecke(q)), ell)
+            K, _ = _kernel_mod(matmul_mod(Gq, U, ell), ell)
+            U = matmul_mod(U, K, ell)
+        if U.shape[1] != d:
+            return None
+        # T on U (column action λ ↦ T·λ): T·E = E·B with E[piv] = identity
+        R, piv = rref_mod(np.ascontiguousarray(np.mod(U.T, ell)), ell)
+        E = np.ascontiguousarray(R.T)
+        B = matmul_mod(T, E, ell)[piv]
+        chi = [int(c) for c in _charpoly_mod(B, ell).coeffs()]
+        Kv = np.empty((d, d))
+        v = np.array([(7 * i * i + 3 * i + 1) % ell for i in range(d)], dtype=np.float64)
+        for t in range(d):
+            Kv[:, t] = v
+            v = matmul_mod(B, v[:, None], ell)[:, 0]
+        phi = matmul_mod(E, matmul_mod(Kv, _h_matrix(chi, fa, d, ell), ell), ell)
+        for t in range(phi.shape[0]):
+            val = flint.nmod_poly([int(x) for x in phi[t]], ell)
+            gg, s_, _ = val.xgcd(fa)
+            if gg.degree() == 0:
+                inv = s_ * flint.nmod_poly([pow(int(gg.coeffs()[0]), -1, ell)], ell)
+                return fa, phi, t, inv, (Wf, wpiv)
+        return None
+
+    def aps_mod(self, orbit: CharOrbit, ps: list[int], ell: int) -> dict | None:
+        """{a: {p: a_p(χ^a-form) in F_ℓ[x]/(f_a)}} or None if ℓ is bad for the orbit."""
+        data = self._eigen(ell, orbit)
+        if data is None:
+            return None
+        cache = self.__dict__.setdefault("_aps", {})
+        out = {}
+        for a, (fa, phi, v, inv, _w) in data.items():
+            want = [p for p in ps if (ell, id(orbit), a, p) not in cache]
+            if want:
+                M = self.conj(ell, a).M
+                rows = M.hecke_of_symbol(M.free[v], want)
+                vals = matmul_mod(rows, phi, ell)
+                for r, p in enumerate(want):
+                    x = flint.nmod_poly([int(y) for y in vals[r]], ell)
+                    cache[(ell, id(orbit), a, p)] = (x * inv) % fa
+            out[a] = {p: cache[(ell, id(orbit), a, p)] for p in ps}
+        return out
+
+    def good_primes_for(self, orbit: CharOrbit):
+        for ell in self.primes():
+            if self._eigen(ell, orbit) is not None:
+                yield ell
+
+    # -- exact numbers ------------------------------------------------------------------------
+    def traces(self, orbit: CharOrbit, B: int) -> list[int]:
+        """[Tr_{K/Q} a_n, n = 1..B] exactly (Deligne's bound, CRT)."""
+        k, N = self.k, self.N
+        need = 2 * deligne_trace_bound(orbit.dim, k, B) + 1
+        ps = primes_up_to(B)
+        res, mods, prod = [], [], 1
+        for ell in self.good_primes_for(orbit):
+            aps = self.aps_mod(orbit, ps, ell)
+            tot = [0] * B
+            for a, by_p in aps.items():
+                fa = self._eigen(ell, orbit)[a][0]
+                values = self.conj(ell, a).M.values
+                tr = _traces_rel(by_p, fa, B, N, k, ell, values)
+                tot = [(x + y) % ell for x, y in zip(tot, tr, strict=True)]
+            res.append(tot)
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        out = []
+        for n in range(B):
+            x = _crt([r[n] for r in res], mods)
+            out.append(x - prod if x > prod // 2 else x)
+        return out
+
+    def exact_aps(self, orbit: CharOrbit, ps: list[int]) -> dict[int, flint.fmpq_poly]:
+        """Exact a_p ∈ K = Q[x]/(F), x = a_q (F irreducible of degree d)."""
+        F = orbit.poly
+        d, k = F.degree(), self.k
+        Fp = F.derivative()
+        rho = self.root_bound(self.split[0])
+        shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
+        need = 2 * max(d * (isqrt(4 * p ** (k - 1)) + 1) * shape for p in ps) + 1
+        res, mods, prod = [], [], 1
+        for ell in self.good_primes_for(orbit):
+            aps = self.aps_mod(orbit, ps, ell)
+            data = self._eigen(ell, orbit)
+            Fl, Fpl = _nmod(F.coeffs(), ell), _nmod(Fp.coeffs(), ell)
+            per = {}
+            for p in ps:
+                # CRT in F_ℓ[x]: a_p ≡ aps[a][p] mod f_a for every conjugate a
+                val = _crt_poly([(aps[a][p], data[a][0]) for a in aps], ell)
+                per[p] = _coeffs((val * Fpl) % Fl, d)
+            res.append(per)
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        K = NumberField(F)
+        inv = K.inv(K.elt([int(c) for c in Fp.coeffs()]))
+        out = {}
+        for p in ps:
+            b = []
+            for j in range(d):
+                x = _crt([r[p][j] for r in res], mods)
+                b.append(x - prod if x > prod // 2 else x)
+            out[p] = K.mul(K.elt(b), inv)
+        return out
+
+
+
+    def orbit_charpoly(self, orbit: CharOrbit, q: int) -> flint.fmpz_poly:
+        """Absolute charpoly of T_q on the orbit (Π over conjugates, CRT, Deligne's bound)."""
+        rho = isqrt(4 * q ** (self.k - 1)) + 1
+        need = 2 * (1 + rho) ** orbit.dim
+        res, mods, prod = [], [], 1
+        for ell in self.good_primes_for(orbit):
+            data = self._eigen(ell, orbit)
+            P = flint.nmod_poly([1], ell)
+            for a in self.conjugates:
+                Wf, wpiv = data[a][4]
+                P *= _charpoly_mod(_restrict_rows(Wf, wpiv, self.conj(ell, a).M.hecke(q), ell),
+                                   ell)
+            res.append([int(c) for c in P.coeffs()] + [0] * (orbit.dim + 1 - len(P.coeffs())))
+            mods.append(ell)
+            prod *= ell
+            if prod > need:
+                break
+        coeffs = []
+        for i in range(orbit.dim + 1):
+            x = _crt([r[i] for r in res], mods)
+            coeffs.append(x - prod if x > prod // 2 else x)
+        return flint.fmpz_poly(coeffs)
+
+    def ap_is_zero(self, orbit: CharOrbit, p: int) -> bool:
+        """a_p = 0 exactly: zero modulo primes whose product exceeds twice the bound on
+        the coefficients of a_p·F'(x) (see exact_aps)."""
+        d, k = orbit.dim, self.k
+        rho = self.root_bound(self.split[0])
+        shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
+        need = 2 * d * (isqrt(4 * p ** (k - 1)) + 1) * shape + 1
+        prod = 1
+        for ell in self.good_primes_for(orbit):
+            aps = self.aps_mod(orbit, [p], ell)
+            if any(not by_p[p].is_zero() for by_p in aps.values()):
+                return False
+            prod *= ell
+            if prod > need:
+                return True
+        return True  # pragma: no cover
+
+
+def compute_char(N: int, k: int, chi: CharacterOrbit, params: Params, t0: float) -> SpaceRecord:
+    """The record of the unit (N, k, [χ]) for a nontrivial character orbit (module doc)."""
+    from builder.checks.char_formulas import dim_eisenstein
+
+    U = CharUnit(N, k, chi)
+    B = params.trace_bound
+    forms = []
+    for o in U.orbits:
+        traces = U.traces(o, B)
+        forms.append(_orbit_record(U, o, traces, params))
+    forms.sort(key=lambda f: f["_key"])
+    records = []
+    for i, f in enumerate(forms, start=1):
+        f.pop("_key")
+        records.append(NewformRecord(label=make_label(N, k, i, chi.index), orbit=i, **f))
+    return SpaceRecord(
+        level=N, weight=k, char_index=chi.index,
+        dim_cusp=U.dim_cusp, dim_new=U.dim_new, dim_old=U.dim_cusp - U.dim_new,
+        dim_eis=dim_eisenstein(N, k, chi), num_orbits=len(records),
+        sturm_bound=sturm_bound(N, k), params={"trace_bound": params.trace_bound,
+                                              "ap_bound": params.ap_bound,
+                                              "dim_cap": params.dim_cap},
+        newforms=records, seconds=round(time.perf_counter() - t0, 4),
+        char_order=chi.order, char_conductor=chi.conductor, char_parity=chi.parity,
+        char_number=chi.number, char_degree=U.phi_m,
+    )
+
+
+def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) -> dict:
+    d = o.dim
+    exact = d <= params.dim_cap
+    if exact:
+        poly, ap = _exact_field_data(U, o, params.ap_bound)
+    else:
+        poly, ap = o.poly, None
+    q0 = U.good_hecke_primes()[0]
+    cm = _cm_discriminant(U, o)
+    ptraces = [traces[p - 1] for p in primes_up_to(params.trace_bound)]
+    return {
+        "dim": d,
+        "rel_dim": d // U.phi_m,
+        "field_poly": [int(c) for c in poly.coeffs()],
+        "field_disc": (str(int(poly.discriminant())) if d > 1 else "1") if exact else None,
+        "traces": traces,
+        "atkin_lehner": {},
+        "fricke_sign": None,
+        "root_number": None,
+        "is_cm": cm is not None,
+        "cm_disc": cm,
+        "lvalue_zero": None,
+        "l_ratio": None,
+        "ap": ap,
+        "hecke_poly_2": [int(c) for c in U.orbit_charpoly(o, q0).coeffs()],
+        "_key": (d, ptraces, traces),
+    }
+
+
+def _exact_field_data(U: CharUnit, o: CharOrbit, ap_bound: int):
+    """Canonical polynomial (T2-reduced: K has complex embeddings) and exact a_p in the
+    power basis of its root; the a_n generate an order of rank d (doubling the bound)."""
+    K = NumberField(o.poly)
+    bound = FIELD_BOUND
+    cache: dict = {}
+    chi_of = _chi_in_K(U, K, o)
+    conj = _conjugation(U, K, o, chi_of)
+    while True:
+        ps = primes_up_to(bound)
+        missing = [p for p in ps if p not in cache]
+        if missing:
+            cache.update(U.exact_aps(o, missing))
+        a: list = [None] * (bound + 1)
+        a[1] = K.elt([1])
+        for p in ps:
+            a[p] = cache[p]
+        _fill_char(a, bound, U, K, chi_of)
+        try:
+            poly, beta = canonical_polynomial(K, a[1:], conj=conj)
+            break
+        except ArithmeticError:
+            if bound > 4 * sturm_bound(U.N, U.k) + 100:
+                raise
+            bound *= 2
+    P = change_basis_matrix(K, beta)
+    missing = [p for p in primes_up_to(ap_bound) if p not in cache]
+    if missing:
+        cache.update(U.exact_aps(o, missing))
+    out = {}
+    for p in primes_up_to(ap_bound):
+        row = flint.fmpq_mat(1, K.d, K.coords(cache[p])) * P
+        out[p] = [str(row[0, j]) for j in range(K.d)]
+    return poly, out
+
+
+def _chi_in_K(U: CharUnit, K: NumberField, o: CharOrbit):
+    """p ↦ χ(p) ∈ K.  The splitting operator is T = Σ c_q T_q + c⟨g⟩, so χ(g) =
+    (x − Σ c_q a_q)/c with x = a_T the generator of K; χ(g) has order m, and
+    χ(n) = χ(g)^(e(n)·e(g)⁻¹ mod m) (0 when gcd(n, N) > 1)."""
+    terms, (g, c) = U.split[0]
+    exact = U.exact_aps(o, [q for q, _ in terms])
+    chi_g = K.elt([0, 1])
+    for q, cq in terms:
+        chi_g = chi_g - exact[q] * cq
+    chi_g = chi_g * flint.fmpq(1, c)
+    m, chi = U.chi.order, U.chi
+    inv = pow(chi.exponent(g), -1, m) if m > 1 else 0
+    powers = [K.elt([1])]
+    for _ in range(1, m):
+        powers.append(K.mul(powers[-1], chi_g))
+    if K.mul(powers[-1], chi_g) != powers[0]:
+        raise ArithmeticError(f"χ(g) in K does not have order {m}")
+
+    def chi_of(n: int):
+        if gcd(n, U.N) != 1:
+            return K.elt([0])
+        return powers[chi.exponent(n) * inv % m] if m > 1 else powers[0]
+
+    return chi_of
+
+
+def _conjugation(U: CharUnit, K: NumberField, o: CharOrbit, chi_of) -> flint.fmpq_mat:
+    """Complex conjugation of K (a CM field, [Ri] Ribet, Galois representations attached to
+    eigenforms with Nebentypus, §1): conj(a_p) = χ̄(p)·a_p for p ∤ N, so conj(x) for
+    x = Σ c_q a_q + c·χ(g); the matrix on power-basis coordinates (rows = conj(x^i)),
+    checked to be a ring involution (F(conj x) = 0 and conj² = 1)."""
+    m = U.chi.order
+    terms, (g, c) = U.split[0]
+    exact = U.exact_aps(o, [q for q, _ in terms])
+
+    def bar(z):
+        return _pow_K(K, z, m - 1)  # χ(n)^(−1) = χ(n)^(m−1)
+
+    cx = bar(chi_of(g)) * c
+    for q, cq in terms:
+        cx = cx + K.mul(bar(chi_of(q)), exact[q]) * cq
+    C = flint.fmpq_mat(K.d, K.d)
+    z = K.elt([1])
+    for i in range(K.d):
+        row = K.coords(z)
+        for j in range(K.d):
+            C[i, j] = row[j]
+        z = K.mul(z, cx)
+    val = K.elt([0])
+    for coef in reversed(list(K.f.coeffs())):
+        val = K.mul(val, cx) + K.elt([coef])
+    if val != K.elt([0]) or C * C != flint.fmpq_mat(K.d, K.d, [int(i == j) for i in range(K.d)
+                                                               for j in range(K.d)]):
+        raise ArithmeticError("complex conjugation of K failed its check")
+    return C
+
+
+def _fill_char(a: list, B: int, U: CharUnit, K: NumberField, chi_of) -> None:
+    """a_n ∈ K (n ≤ B) from the a_p by a_{p^(r+1)} = a_p a_{p^r} − χ(p)p^(k−1) a_{p^(r−1)}
+    and multiplicativity ([DS] Prop. 5.8.5 with character)."""
+    one = K.elt([1])
+    for p in primes_up_to(B):
+        cp = chi_of(p) * (p ** (U.k - 1))
+        prev2, prev, q = one, a[p], p
+        while q * p <= B:
+            nxt = K.mul(a[p], prev) - K.mul(cp, prev2)
+            prev2, prev = prev, nxt
+            q *= p
+            a[q] = nxt
+    for n in range(2, B + 1):
+        f = factor(n)
+        if len(f) > 1:
+            val = one
+            for p, e in f:
+                val = K.mul(val, a[p**e])
+            a[n] = val
+
+
+def _pow_K(K: NumberField, x, e: int):
+    out = K.elt([1])
+    for _ in range(e):
+        out = K.mul(out, x)
+    return out
+
+
+def _cm_discriminant(U: CharUnit, o: CharOrbit) -> int | None:
+    """The CM discriminant D < 0 (|D| | N, fundamental) of the orbit, or None: a_p = 0 for
+    every prime p ≤ Sturm(lcm(N, D²), k) with (D/p) = −1, as for the trivial character
+    (builder.forms.unit.cm_discriminant), each zero decided exactly (ap_is_zero)."""
+    from builder.forms.unit import _fundamental_discriminants_dividing, kronecker
+
+    for D in _fundamental_discriminants_dividing(U.N):
+        L = U.N * D * D // gcd(U.N, D * D)
+        ok = True
+        for p in iter_primes(sturm_bound(L, U.k)):
+            if kronecker(D, p) == -1 and not U.ap_is_zero(o, p):
+                ok = False
+                break
+        if ok:
+            return D
+    return None
+
+
+def _sym(x: int, prod: int) -> int:
+    return x - prod if x > prod // 2 else x
+
+
+@lru_cache(maxsize=64)
+def _vinv_norm(m: int) -> int:
+    """An integer ≥ ‖V⁻¹‖_∞ (max row sum of |entries|), V[a, i] = ζ_m^(a·i) for a ∈ (Z/m)^×,
+    0 ≤ i < φ(m): certified with FLINT's ball arithmetic (acb_mat.inv)."""
+    units = [a for a in range(1, m + 1) if gcd(a, m) == 1] if m > 1 else [1]
+    old = flint.ctx.prec
+    flint.ctx.prec = 128
+    try:
+        z = [flint.acb(flint.arb(2 * a) / m).exp_pi_i() for a in units]
+        V = flint.acb_mat([[z[r] ** i for i in range(len(units))] for r in range(len(units))])
+        W = V.inv()
+        best = flint.arb(0)
+        for i in range(W.nrows()):
+            row = sum((abs(W[i, j]) for j in range(W.ncols())), flint.arb(0))
+            best = max(best, row, key=lambda x: float(x.upper()))
+        return int(float(best.upper()) * 1.001) + 1
+    finally:
+        flint.ctx.prec = old
+
+
+def _coords_mod(vals: np.ndarray, m: int, conj: list[int], ell: int) -> list[list[int]]:
+    """Rows j: power-basis coordinates mod ℓ of the element whose images at ζ_m ↦ ω^a
+    (a in ``conj``) are vals[j] — the inverse of the reduction Z[ζ_m]/ℓ ≅ F_ℓ^φ(m)."""
+    from builder.characters import root_of_unity
+
+    w = root_of_unity(ell, m) if m > 1 else 1
+    n = len(conj)
+    V = flint.nmod_mat([[pow(w, a * i, ell) for i in range(n)] for a in conj], ell)
+    Vi = V.inv()
+    out = []
+    for row in vals:
+        x = Vi * flint.nmod_mat([[int(v)] for v in row], ell)
+        out.append([int(x[i, 0]) for i in range(n)])
+    return out
+
+
+def _norm_poly(rel: list[list[int]], m: int, conj: list[int], rho: int,
+               d: int) -> flint.fmpz_poly:
+    """Π_a σ_a(P) ∈ Z[x] for P ∈ Z[ζ_m][x] (coefficient j has coordinates rel[j]): by CRT
+    over primes ℓ ≡ 1 (mod m), its roots bounded by ρ (coefficients by 2(1 + ρ)^deg)."""
+    from builder.characters import root_of_unity
+
+    deg = d * len(conj)
+    need = 2 * (1 + rho) ** deg + 1
+    res, mods, prod = [], [], 1
+    for ell in primes_one_mod(m):
+        w = root_of_unity(ell, m) if m > 1 else 1
+        P = flint.nmod_poly([1], ell)
+        for a in conj:
+            pw = [pow(w, a * i, ell) for i in range(len(conj))]
+            P *= flint.nmod_poly([sum(c * x for c, x in zip(cj, pw, strict=True)) % ell
+                                  for cj in rel], ell)
+        res.append([int(c) for c in P.coeffs()])
+        mods.append(ell)
+        prod *= ell
+        if prod > need:
+            break
+    return flint.fmpz_poly([_sym(_crt([r[i] for r in res], mods), prod)
+                            for i in range(deg + 1)])
+
+
+def _coeffs(a: flint.nmod_poly, d: int) -> list[int]:
+    c = [int(x) for x in a.coeffs()]
+    return c + [0] * (d - len(c))
+
+
+def _crt_poly(pairs: list, ell: int) -> flint.nmod_poly:
+    """x ≡ r_i (mod f_i) in F_ℓ[x] for pairwise coprime f_i."""
+    x = flint.nmod_poly([0], ell)
+    m = flint.nmod_poly([1], ell)
+    for r, f in pairs:
+        g, s, _ = m.xgcd(f)  # s·m ≡ g (mod f)
+        ginv = pow(int(g.coeffs()[0]), -1, ell)
+        t = ((r - x) * s * ginv) % f
+        x = x + m * t
+        m = m * f
+    return x % m
+
+
+def _traces_rel(aps: dict, f: flint.nmod_poly, B: int, N: int, k: int, ell: int,
+                values: np.ndarray) -> list[int]:
+    """Tr over F_ℓ[x]/(f) of a_n, n = 1..B, from a_p by a_{p^(r+1)} = a_p a_{p^r} −
+    χ(p) p^(k−1) a_{p^(r−1)} ([DS] Prop. 5.8.5 with character) and multiplicativity."""
+    one = flint.nmod_poly([1], ell)
+    a: list = [None] * (B + 1)
+    a[1] = one
+    for p, v in aps.items():
+        a[p] = v
+    for p in primes_up_to(B):
+        c = int(values[p % N]) * pow(p, k - 1, ell) % ell
+        prev2, prev, q = one, a[p], p
+        while q * p <= B:
+            nxt = (a[p] * prev - prev2 * c) % f
+            prev2, prev = prev, nxt
+            q *= p
+            a[q] = nxt
+    for n in range(2, B + 1):
+        fa = factor(n)
+        if len(fa) > 1:
+            val = one
+            for p, e in fa:
+                val = (val * a[p**e]) % f
+            a[n] = val
+    # power sums of the roots of f modulo ℓ (Newton)
+    d = f.degree()
+    c = [int(x) for x in f.coeffs()]
+    e = [(-1) ** i * c[d - i] % ell for i in range(d + 1)]
+    ps = [d % ell]
+    for m in range(1, d):
+        s = sum((-1) ** (i - 1) * e[i] * ps[m - i] for i in range(1, m)) if m > 1 else 0
+        s += (-1) ** (m - 1) * m * e[m]
+        ps.append(s % ell)
+    out = []
+    for n in range(1, B + 1):
+        cs = [int(x) for x in a[n].coeffs()]
+        out.append(sum(ci * ps[j] for j, ci in enumerate(cs)) % ell)
+    return out
+
+
+__all__ = ["CharUnit", "CharOrbit", "compute_char"]

@@ -1,0 +1,226 @@
+"""Newform orbits with a Dirichlet character (builder/forms/charforms.py, builder/forms/unit.py).
+
+Every oracle is independent of the engine (tests/char_oracles.py imports nothing from
+``builder``):
+[CO]  Cohen–Oesterlé dimension formula (tests/char_oracles.py: dim_cusp_char, dim_new_char).
+[CS]  H. Cohen, F. Strömberg, Modular Forms: A Classical Approach, Thm 12.4.11 — the
+      Eichler–Selberg trace formula with character (tests/char_oracles.py: trace_hecke_char).
+[Li]  W. Li, Newforms and functional equations, Math. Ann. 212 (1975): S_k(N, χ) =
+      ⊕_{cond χ | M | N} ⊕_{d | N/M} S_k^new(M, χ_M)(dz), so Tr T_n = Σ_M σ0(N/M)·Tr^new_M.
+[Mi]  T. Miyake, Modular Forms, Springer 1989, Thm 4.6.17 (a_p for p | N with character).
+[YM]  Y. Martin, Multiplicative η-quotients, Trans. AMS 348 (1996), Table I (from memory,
+      validated in tests/test_char_oracles.py).
+[De]  P. Deligne, La conjecture de Weil I (1974): |σ(a_p)| ≤ 2p^((k−1)/2) for p ∤ N.
+[DS]  F. Diamond, J. Shurman, A First Course in Modular Forms, Prop. 5.8.5: a_{p²} =
+      a_p² − χ(p)p^(k−1).
+"""
+
+from __future__ import annotations
+
+from functools import cache
+from math import gcd
+
+import flint
+import pytest
+
+from builder.arith import factor, primes_up_to
+from builder.characters import character_orbits, primes_one_mod
+from builder.forms.charforms import CharUnit
+from builder.forms.record import Params, compute_unit
+from tests.char_oracles import (
+    character_at_level,
+    dim_cusp_char,
+    dim_new_char,
+    eta_char_forms,
+    ramanujan_sum,
+    trace_hecke_char,
+)
+
+NMAX = 20
+
+
+def _matching(k: int, chi) -> bool:
+    return (k % 2 == 0) == (chi.parity == 1)
+
+
+@pytest.mark.parametrize("N", range(1, 61))
+def test_cusp_and_new_dimensions_for_every_character_orbit(N):
+    """The +1 cuspidal symbols mod ℓ (kernel of the boundary map) and their new part
+    (kernel of the degeneracy maps) have the [CO] dimensions, the new one by Möbius-type
+    inversion over the levels divisible by the conductor ([Li]); N ≤ 60, 2 ≤ k ≤ 6."""
+    for chi in character_orbits(N):
+        oracle = (N, chi.order, chi.exps)
+        for k in range(2, 7):
+            if not _matching(k, chi):
+                continue
+            st = CharUnit(N, k, chi).conj(next(primes_one_mod(chi.order)), 1)
+            assert st.dim_s == dim_cusp_char(oracle, k), (N, k, chi.index)
+            if st.dim_s:
+                assert st.V.shape[0] == dim_new_char(oracle, k), (N, k, chi.index)
+
+
+@cache
+def _new_traces(M: int, k: int, index: int) -> tuple[int, ...]:
+    """Σ over the orbits of the unit (M, k, index) of Tr_{K/Q} a_n, n = 1..NMAX."""
+    U = CharUnit(M, k, character_orbits(M)[index])
+    tot = [0] * NMAX
+    for o in U.orbits:
+        tot = [a + b for a, b in zip(tot, U.traces(o, NMAX), strict=True)]
+    return tuple(tot)
+
+
+def _orbit_index(M: int, m: int, e: tuple[int, ...]) -> int:
+    """Our index at level M of the orbit containing the oracle character (M, m, e)."""
+    for O in character_orbits(M):
+        L = m * O.order
+        for a in range(1, L):
+            if gcd(a, L) == 1 and all(
+                O.exps[n] < 0 or (a * e[n] * (L // m) - O.exps[n] * (L // O.order)) % L == 0
+                for n in range(M)
+            ):
+                return O.index
+    raise AssertionError(f"no orbit at level {M} contains the character")
+
+
+@pytest.mark.parametrize("N", range(3, 41))
+def test_trace_formula_with_character(N):
+    """Σ_{cond χ | M | N} σ0(N/M)·Σ_{orbits at (M, χ_M)} Tr a_n = Tr_{Q(χ)/Q} Tr(T_n |
+    S_k(N, χ)) by the trace formula [CS] Thm 12.4.11, for n ≤ 20 coprime to N, k ∈ {2,3,4},
+    every nontrivial character orbit ([Li] for the old part)."""
+    for chi in character_orbits(N):
+        if chi.order == 1:
+            continue
+        for k in (2, 3, 4):
+            if not _matching(k, chi):
+                continue
+            lhs = [0] * NMAX
+            for M in range(chi.conductor, N + 1):
+                if N % M or M % chi.conductor:
+                    continue
+                _, m2, e2 = character_at_level((N, chi.order, chi.exps), M)
+                s0 = sum(1 for d in range(1, N // M + 1) if (N // M) % d == 0)
+                new = _new_traces(M, k, _orbit_index(M, m2, e2))
+                lhs = [a + s0 * b for a, b in zip(lhs, new, strict=True)]
+            for n in range(1, NMAX + 1):
+                if gcd(n, N) == 1:
+                    rhs = trace_hecke_char(n, (N, chi.order, chi.exps), k).trace()
+                    assert lhs[n - 1] == rhs, (N, k, chi.index, n)
+
+
+PARAMS = Params(trace_bound=200, ap_bound=50, dim_cap=20)
+
+
+def _index_of(N: int, e: tuple[int, ...]) -> int:
+    return _orbit_index(N, 2, e)
+
+
+@pytest.mark.parametrize("form", eta_char_forms(200), ids=lambda f: f.name)
+def test_eta_quotients_with_character(form):
+    """[YM] Table I: the η-quotient is a newform in S_k(N, (D/·)); the unit of that
+    character has a rational orbit whose a_n (n ≤ 200, = traces) are its coefficients."""
+    N, k = form.level, form.weight
+    R = compute_unit(N, k, PARAMS, char_index=_index_of(N, form.chi[2]))
+    hits = [f for f in R.newforms if f.dim == 1 and tuple(f.traces) == form.coeffs]
+    assert len(hits) == 1, form.name
+    assert hits[0].ap is not None and hits[0].ap[2] == [str(form.coeffs[1])]
+
+
+# a spread of units: odd and even weights, orders 2..12, conductors < N, several orbits
+UNITS = [(7, 3, 1), (13, 2, 4), (16, 3, 4), (21, 2, 7), (25, 2, 4), (27, 2, 4), (45, 2, 4),
+         (45, 2, 10), (11, 3, 3), (20, 3, 3), (28, 2, 6), (35, 2, 11), (9, 4, 2), (12, 3, 2),
+         (45, 2, 2)]
+
+
+@cache
+def _record(N: int, k: int, j: int):
+    return compute_unit(N, k, PARAMS, char_index=j)
+
+
+def _embeddings(poly: list[int]) -> list:
+    flint.ctx.prec = 200
+    return [r for r, _ in flint.fmpz_poly(poly).complex_roots()]
+
+
+def _value(coords: list[str], root) -> flint.acb:
+    v = flint.acb(0)
+    for c in reversed(coords):
+        v = v * root + flint.acb(flint.fmpq(*[int(x) for x in (c.split("/") + ["1"])[:2]]))
+    return v
+
+
+@pytest.mark.parametrize("N,k,j", UNITS)
+def test_record_invariants(N, k, j):
+    """Σ orbit dims = φ(m)·dim_new ([Li]: each orbit meets each S_k(N, χ^a) in rel_dim
+    forms); dims against [CO]; a_1 = 1; labels; K is CM or totally real (common practice:
+    a_p̄ = χ̄(p)a_p)."""
+    chi = character_orbits(N)[j]
+    R = _record(N, k, j)
+    oracle = (N, chi.order, chi.exps)
+    assert (R.dim_cusp, R.dim_new) == (dim_cusp_char(oracle, k), dim_new_char(oracle, k))
+    assert (R.char_order, R.char_conductor, R.char_parity, R.char_number) == (
+        chi.order, chi.conductor, chi.parity, chi.number)
+    assert sum(f.dim for f in R.newforms) == R.char_degree * R.dim_new
+    for i, f in enumerate(R.newforms, start=1):
+        assert f.label == f"{N}w{k}c{j}-{i}" and f.orbit == i
+        assert f.rel_dim * R.char_degree == f.dim
+        assert f.traces[0] == f.dim and len(f.field_poly) == f.dim + 1
+        assert f.fricke_sign is None and f.atkin_lehner == {}
+        real = sum(1 for r in _embeddings(f.field_poly) if r.imag.contains(0))
+        assert real in (0, f.dim)
+
+
+@pytest.mark.parametrize("N,k,j", UNITS)
+def test_deligne_and_the_rules_at_bad_primes(N, k, j):
+    """Every complex embedding σ of K: |σ(a_p)| ≤ 2p^((k−1)/2) for p ∤ N [De]; for p | N
+    [Mi] Thm 4.6.17: |a_p| = p^((k−1)/2) if the p-parts of N and cond χ agree; a_p² has
+    absolute value p^(k−2) if p ∥ N and p ∤ cond χ; a_p = 0 if p² | N and the p-part of
+    cond χ is smaller than that of N."""
+    chi = character_orbits(N)[j]
+    R = _record(N, k, j)
+    for f in R.newforms:
+        roots = _embeddings(f.field_poly)
+        for p, coords in f.ap.items():
+            vals = [abs(_value(coords, r)) for r in roots]
+            eN, ec = _pval(N, p), _pval(chi.conductor, p)
+            if eN == 0:
+                assert all(v < 2 * p ** ((k - 1) / 2) + 1e-9 for v in vals), (f.label, p)
+            elif eN == ec:
+                assert all(abs(v - p ** ((k - 1) / 2)) < 1e-9 for v in vals), (f.label, p)
+            elif eN == 1:
+                assert all(abs(v - p ** ((k - 2) / 2)) < 1e-9 for v in vals), (f.label, p)
+            else:
+                assert all(c == "0" for c in coords), (f.label, p)
+
+
+def _pval(n: int, p: int) -> int:
+    return dict(factor(n)).get(p, 0) if n > 1 else 0
+
+
+@pytest.mark.parametrize("N,k,j", UNITS)
+def test_hecke_relation_with_character_on_traces(N, k, j):
+    """[DS] Prop. 5.8.5: a_{p²} = a_p² − χ(p)p^(k−1), so Tr_{K/Q}(a_p²) − Tr a_{p²} =
+    p^(k−1)·rel_dim·c_m(e(p)), c_m the Ramanujan sum = Tr_{Q(ζ_m)/Q}(ζ_m^e) (Apostol,
+    Introduction to Analytic Number Theory, §8.3); a_p exact, a_{p²} from the traces."""
+    chi = character_orbits(N)[j]
+    R = _record(N, k, j)
+    for f in R.newforms:
+        roots = _embeddings(f.field_poly)
+        for p in primes_up_to(14):
+            if N % p == 0:
+                continue
+            sq = sum((_value(f.ap[p], r) ** 2 for r in roots), flint.acb(0)).real
+            want = f.traces[p * p - 1] + p ** (k - 1) * f.rel_dim * ramanujan_sum(
+                chi.order, chi.exponent(p))
+            assert abs(sq - want) < 1e-6, (f.label, p)
+
+
+def test_cm_orbits_vanish_at_inert_primes():
+    """A form with CM by Q(√D) has a_p = 0 for (D/p) = −1 (Ribet, Galois representations
+    attached to eigenforms with Nebentypus, §3); η(z)³η(7z)³ has CM by Q(√−7) ([YM] Table I,
+    from memory; checked here on the stored traces)."""
+    R = _record(7, 3, 1)
+    (f,) = R.newforms
+    assert f.is_cm and f.cm_disc == -7
+    for p in primes_up_to(200):
+        if p not in (2, 7) and pow(-7 % p, (p - 1) // 2, p) == p - 1:  # Euler
+            assert f.traces[p - 1] == 0
