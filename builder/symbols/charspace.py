@@ -30,7 +30,6 @@ from builder.symbols.manin import poly_action
 from builder.symbols.p1 import P1, p1
 
 
-
 def poly_action_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, w: int,
                     ell: int) -> np.ndarray:
     """builder.symbols.manin.poly_action for arrays of matrices, modulo ℓ < 2^21:
