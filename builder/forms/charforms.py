@@ -42,7 +42,7 @@ import numpy as np
 
 from builder.arith import factor, iter_primes, prime_divisors, primes_up_to, sturm_bound
 from builder.characters import CharacterOrbit, primes_one_mod
-from builder.forms.eigen import _crt, _h_matrix, deligne_trace_bound
+from builder.forms.eigen import _crt, _h_matrix, deligne_trace_bound, krylov_start
 from builder.forms.fields import NumberField, canonical_polynomial, change_basis_matrix
 from builder.forms.newspace import _kernel_mod
 from builder.forms.record import NewformRecord, Params, SpaceRecord, make_label
@@ -373,7 +373,7 @@ class CharUnit:
         B = matmul_mod(T, E, ell)[piv]
         chi = [int(c) for c in _charpoly_mod(B, ell).coeffs()]
         Kv = np.empty((d, d))
-        v = np.array([(7 * i * i + 3 * i + 1) % ell for i in range(d)], dtype=np.float64)
+        v = krylov_start(d, ell)
         for t in range(d):
             Kv[:, t] = v
             v = matmul_mod(B, v[:, None], ell)[:, 0]

@@ -50,6 +50,14 @@ from builder.linalg_modp import (
 _V_SCAN = 400  # free generators tried as the base symbol v before giving up on ℓ
 
 
+def krylov_start(n: int, ell: int) -> np.ndarray:
+    """The Krylov start vector mod ℓ: pseudo-random with seed ℓ (deterministic).  It must
+    not lie in a sum of eigenspaces missing an orbit; a fixed integer vector can do so
+    exactly (N = 755: orthogonal to one rational eigenvector for every ℓ), a vector that
+    changes with ℓ cannot for all ℓ."""
+    return np.random.default_rng(ell).integers(0, ell, n).astype(np.float64)
+
+
 def ceil_sqrt_times(c: int, m: int) -> int:
     """An integer ≥ c·√m."""
     return isqrt(c * c * m) + 1
@@ -89,7 +97,7 @@ class _ModState:
         s = Al.shape[0]
         chi = [int(c) % ell for c in (o0.poly * o0.cofactor).coeffs()]
         Kv = np.empty((s, s))
-        v = np.array([(7 * i * i + 3 * i + 1) % ell for i in range(s)], dtype=np.float64)
+        v = krylov_start(s, ell)
         for t in range(s):
             Kv[:, t] = v
             v = matmul_mod(Al, v[:, None], ell)[:, 0]
@@ -136,6 +144,13 @@ class _ModState:
                 break
             if len(first) == len(todo) and t > 8:
                 break
+        for t in range(min(n, _V_SCAN), n):  # rare: φ vanishes on all the first symbols
+            missing = [i for i in todo if i not in first]
+            if not missing:
+                break
+            for i in missing:
+                if self._unit_inverse(self.phi[t], i) is not None:
+                    first[i] = t
         for i in todo:
             if i not in first:
                 self.good[i] = False  # φ vanishes somewhere on every tried symbol
