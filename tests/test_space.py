@@ -561,3 +561,21 @@ def test_odd_weight_is_the_zero_space(k):
             assert (S.dim, S.dim_cuspidal, S.dim_eisenstein) == (0, 0, 0)
             assert S.hecke_matrix(2).nrows() == 0
             assert S.fricke().nrows() == 0
+
+
+def test_vectorised_polynomial_action_row_is_exact():
+    """poly_action_row (all Heilbronn matrices at once, int64 or Python integers) equals
+    the exact per-matrix expansion (common practice: the same binomial expansion)."""
+    import numpy as np
+
+    from builder.symbols.manin import poly_action
+    from builder.symbols.space import poly_action_row
+
+    rng = np.random.default_rng(7)
+    for w in (1, 2, 4, 10, 22):
+        a, b, c, d = (rng.integers(-3000, 3000, 25) for _ in range(4))
+        for i in range(w + 1):
+            A = poly_action_row(a, b, c, d, i, w)
+            for h in range(25):
+                want = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), w)[i]
+                assert [int(x) for x in A[h]] == want

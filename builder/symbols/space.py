@@ -561,15 +561,16 @@ class SymbolSpace:
                 coefs.append(np.ones(len(ok), dtype=np.int64))
                 load += int(np.sum(indptr[t[ok] + 1] - indptr[t[ok]]))
             else:
-                for h in ok.tolist():
-                    A = poly_action(int(a[h]), int(b[h]), int(c[h]), int(d[h]), self.w)[i]
-                    for m, cf in enumerate(A):
-                        if cf:
-                            sym = m * self.psi + int(t[h])
-                            rows.append(np.array([r], dtype=np.int64))
-                            syms.append(np.array([sym], dtype=np.int64))
-                            coefs.append(np.array([cf], dtype=object))
-                            load += int(indptr[sym + 1] - indptr[sym])
+                A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, self.w)
+                tt = t[ok]
+                for m in range(self.w + 1):
+                    nz = np.nonzero(A[:, m] != 0)[0]
+                    if len(nz):
+                        sym = m * self.psi + tt[nz]
+                        rows.append(np.full(len(nz), r, dtype=np.int64))
+                        syms.append(sym)
+                        coefs.append(A[nz, m])
+                        load += int(np.sum(indptr[sym + 1] - indptr[sym]))
             if load > 1_500_000:
                 flush(r + 1)
         if start < len(ns) or not out:
@@ -738,6 +739,32 @@ class SymbolSpace:
                 _add_into(acc, self.pres.coords(i * self.psi + jN))
             rows.append(acc)
         return rows_to_fmpq_mat(rows, self.dim)
+
+
+def poly_action_row(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, i: int,
+                    w: int) -> np.ndarray:
+    """Row i of builder.symbols.manin.poly_action for arrays of matrices, exactly:
+    A[h, m] = coefficient of X^m Y^(w−m) in (a_h X + b_h Y)^i (c_h X + d_h Y)^(w−i) —
+    int64 when (2·max|entry|)^w < 2^62, Python integers otherwise."""
+    top = int(max((np.max(np.abs(x), initial=0) for x in (a, b, c, d)), default=0))
+    dtype = np.int64 if (2 * top + 1) ** w < (1 << 62) else object
+    a, b, c, d = (np.asarray(x).astype(dtype) for x in (a, b, c, d))
+
+    def power(x: np.ndarray, y: np.ndarray, e: int) -> np.ndarray:
+        out = np.ones((len(x), 1), dtype=dtype)
+        for _ in range(e):
+            nxt = np.zeros((len(x), out.shape[1] + 1), dtype=dtype)
+            nxt[:, 1:] += out * x[:, None]
+            nxt[:, :-1] += out * y[:, None]
+            out = nxt
+        return out
+
+    P, Q = power(a, b, i), power(c, d, w - i)
+    A = np.zeros((len(a), w + 1), dtype=dtype)
+    for s_ in range(i + 1):
+        for t_ in range(w - i + 1):
+            A[:, s_ + t_] += P[:, s_] * Q[:, t_]
+    return A
 
 
 def _times(Z: np.ndarray, s: int) -> np.ndarray:
