@@ -26,6 +26,9 @@ import time
 from datetime import date
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from readme_section import write_section  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 SECTION = "## Characters (issue 7)"
@@ -141,17 +144,7 @@ def _write(units, timed, mean, proj, wall, trivial, cap, capped) -> None:
         f"{x['N']}w{x['k']}c{x['j']} (order {x['order']}, dim new {x['dim_new']}) {x['t']:.1f} s"
         + (" capped" if x["capped"] else "")
         for x in slow) + ".", ""]
-    path = HERE / "README.md"
-    text = path.read_text()
-    block = "\n".join(lines) + "\n"
-    if SECTION in text:
-        head, rest = text.split(SECTION, 1)
-        nxt = rest.find("\n## ")
-        tail = rest[nxt + 1:] if nxt >= 0 else ""
-        text = head + block + ("\n" + tail if tail else "")
-    else:
-        text = text.rstrip("\n") + "\n\n" + block
-    path.write_text(text)
+    write_section(SECTION, lines)
 
 
 if __name__ == "__main__":

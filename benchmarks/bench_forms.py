@@ -20,6 +20,9 @@ import time
 from datetime import date
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from readme_section import write_section  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 SECTION = "## Newforms (issue 3)"
 
@@ -126,17 +129,7 @@ def _write(results: list[dict]) -> None:
     for n in names:
         lines.append(f"| {n} | " + " | ".join(f"{r['steps'][n]:.2f}" for r in results) + " |")
     lines.append("")
-    path = HERE / "README.md"
-    text = path.read_text() if path.exists() else "# Benchmarks\n\n"
-    block = "\n".join(lines) + "\n"
-    if SECTION in text:
-        head, rest = text.split(SECTION, 1)
-        nxt = rest.find("\n## ")
-        tail = rest[nxt + 1:] if nxt >= 0 else ""
-        text = head + block + ("\n" + tail if tail else "")
-    else:
-        text = text.rstrip("\n") + "\n\n" + block
-    path.write_text(text)
+    write_section(SECTION, lines)
 
 
 if __name__ == "__main__":

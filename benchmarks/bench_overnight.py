@@ -38,6 +38,9 @@ import time
 from datetime import date
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from readme_section import write_section  # noqa: E402
+
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
 SECTION = "## Overnight (issue 6)"
@@ -223,17 +226,7 @@ def _write(units, timed, mean, proj, proj_fit, fitted, real, count) -> None:
                   f"`nfb verify` on it: exit {real['verify_exit']} in "
                   f"{real['verify_wall']:.0f} s.", "", "```"]
         lines += real["verify_tail"] + ["```", ""]
-    path = HERE / "README.md"
-    text = path.read_text()
-    block = "\n".join(lines) + "\n"
-    if SECTION in text:
-        head, rest = text.split(SECTION, 1)
-        nxt = rest.find("\n## ")
-        tail = rest[nxt + 1:] if nxt >= 0 else ""
-        text = head + block + ("\n" + tail if tail else "")
-    else:
-        text = text.rstrip("\n") + "\n\n" + block
-    path.write_text(text)
+    write_section(SECTION, lines)
 
 
 if __name__ == "__main__":
