@@ -66,9 +66,7 @@ def float_primes():
 def to_residues(Z: np.ndarray, ell: int) -> np.ndarray:
     """Integer array → float64 residues in [0, ℓ)."""
     if Z.dtype == object:
-        return np.array([[int(x) % ell for x in row] for row in Z], dtype=np.float64).reshape(
-            Z.shape
-        )
+        return np.mod(Z, ell).astype(np.int64).astype(np.float64)
     return np.mod(Z, ell).astype(np.float64)
 
 
@@ -564,14 +562,31 @@ def _dixon(Z: np.ndarray, W: np.ndarray, piv: list[int], prows: list[int], free:
         M *= ell
         if len(digits) < 2 or _common_denominator_lift(np.mod(acc_s, M)[None, :], M) is None:
             continue  # the sample does not lift yet: more digits first (cheap test)
-        acc = np.zeros(Yi.shape, dtype=object)
-        for d in reversed(digits):  # Horner: Σ digits[i]·ℓ^i
-            acc = acc * ell + d.astype(object)
+        acc = _from_digits(digits, ell)
         E = _lift_echelon(_as_int(np.mod(acc, M)) if M < (1 << 62) else np.mod(acc, M), M,
                           piv, n)
         if E is not None and _rowspace_check(Z, E):
             return E
     return None
+
+
+def _from_digits(digits: list[np.ndarray], ell: int) -> np.ndarray:
+    """Σ digits[i]·ℓ^i for balanced digits |d| < ℓ/2, ℓ < 2^21: groups of three summed in
+    int64 (|d0 + d1·ℓ + d2·ℓ²| < 2^63), then a balanced tree of Python-integer sums (a
+    third of the big-number passes of Horner's rule)."""
+    if ell >= FLOAT_PRIME_TOP:
+        raise ValueError(f"digits modulo {ell}: int64 grouping needs ℓ < 2^21")
+    level = [sum(digits[j] * ell ** (j - i) for j in range(i, min(i + 3, len(digits))))
+             for i in range(0, len(digits), 3)]
+    if len(level) == 1:
+        return level[0]
+    parts = [x.astype(object) for x in level]
+    base = ell ** 3
+    while len(parts) > 1:
+        parts = [parts[i] + parts[i + 1] * base if i + 1 < len(parts) else parts[i]
+                 for i in range(0, len(parts), 2)]
+        base *= base
+    return parts[0]
 
 
 def _lift_echelon(acc: np.ndarray, M: int, piv: list[int], n: int) -> Echelon | None:
@@ -653,10 +668,37 @@ def _rowspace_check(Z: np.ndarray, E: Echelon) -> bool:
     free = E.free
     if not free:
         return True
+    if E.piv and E.num.dtype == object and Z.dtype != object and _absmax(Z) < (1 << 20):
+        return _rowspace_check_modular(Z, E)
     lhs = _scale(Z[:, free], E.den)
     rhs = int_matmul(Z[:, E.piv], E.num[:, free]) if E.piv else np.zeros_like(lhs)
     return bool(np.all(np.asarray(lhs, dtype=object) == np.asarray(rhs, dtype=object))) if (
         lhs.dtype == object or rhs.dtype == object) else bool(np.array_equal(lhs, rhs))
+
+
+def _rowspace_check_modular(Z: np.ndarray, E: Echelon) -> bool:
+    """The identity of ``_rowspace_check`` for a big echelon form, checked modulo primes
+    whose product exceeds twice the bound on both sides (then it holds in Z).  Z is small,
+    so the primes can be as large as 2^53/(row sum of Z): one exact float product per
+    prime instead of big-integer limbs."""
+    free = E.free
+    A = Z[:, E.piv]
+    num = E.num[:, free]
+    ra = max(_rowabs_max(A), 1)
+    bound = max(ra * _absmax_any(num), _absmax_any(Z[:, free]) * int(E.den))
+    top = 1 << min(50, ((1 << 53) // (2 * ra)).bit_length() - 1)
+    Af = A.astype(np.float64)
+    Zf = Z[:, free].astype(np.int64)  # |Z|·ℓ < 2^62: the left side stays in int64
+    prod = 1
+    for ell in word_primes(top):
+        lhs = np.mod(Zf * (int(E.den) % ell), ell)
+        rhs = np.mod(Af @ np.mod(num, ell).astype(np.int64).astype(np.float64), ell)
+        if not np.array_equal(lhs, rhs.astype(np.int64)):
+            return False
+        prod *= ell
+        if prod > 2 * bound:
+            return True
+    return False  # pragma: no cover  (the generator is endless)
 
 
 def exact_kernel(Z: np.ndarray) -> QMat:

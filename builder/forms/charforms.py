@@ -274,16 +274,23 @@ class CharUnit:
         if key in cache:
             return cache[key]
         rho = self.root_bound(combo) if which is None else isqrt(4 * which ** (self.k - 1)) + 1
-        d, m = self.dim_new, self.chi.order
-        conj = self.conjugates
+
+        def image(ell: int, a: int) -> flint.nmod_poly:
+            st = self.conj(ell, a)
+            return _charpoly_mod(st.combo(combo) if which is None else st.op(which), ell)
+
+        out = self._norm_of_relative(self.primes(), image, self.dim_new, rho)
+        cache[key] = out
+        return out
+
+    def _norm_of_relative(self, primes, image, d: int, rho: int) -> flint.fmpz_poly:
+        """Π_a σ_a(P) for a monic P ∈ Z[ζ_m][x] of degree d with roots bounded by ρ, from
+        its images ``image(ℓ, a)`` (ζ_m ↦ ω_ℓ^a) at the primes given (see ``charpoly``)."""
+        m, conj = self.chi.order, self.conjugates
         need = 2 * _vinv_norm(m) * (1 + rho) ** d + 1
         res, mods, prod = [], [], 1
-        for ell in self.primes():
-            vals = []
-            for a in conj:
-                st = self.conj(ell, a)
-                P = _charpoly_mod(st.combo(combo) if which is None else st.op(which), ell)
-                vals.append([int(c) for c in P.coeffs()])
+        for ell in primes:
+            vals = [[int(c) for c in image(ell, a).coeffs()] for a in conj]
             res.append(_coords_mod(np.array(vals, dtype=np.int64).T, m, conj, ell))
             mods.append(ell)
             prod *= ell
@@ -291,9 +298,7 @@ class CharUnit:
                 break
         rel = [[_sym(_crt([r[j][i] for r in res], mods), prod) for i in range(len(conj))]
                for j in range(d + 1)]
-        out = _norm_poly(rel, m, conj, rho, d)
-        cache[key] = out
-        return out
+        return _norm_poly(rel, m, conj, rho, d)
 
     @cached_property
     def split(self) -> tuple[tuple, list[CharOrbit]]:
@@ -396,14 +401,25 @@ class CharUnit:
         for a, (fa, phi, v, inv, _w) in data.items():
             want = [p for p in ps if (ell, id(orbit), a, p) not in cache]
             if want:
-                M = self.conj(ell, a).M
-                rows = M.hecke_of_symbol(M.free[v], want)
+                rows = self._hecke_rows(ell, a, self.conj(ell, a).M.free[v], want)
                 vals = matmul_mod(rows, phi, ell)
                 for r, p in enumerate(want):
                     x = flint.nmod_poly([int(y) for y in vals[r]], ell)
                     cache[(ell, id(orbit), a, p)] = (x * inv) % fa
             out[a] = {p: cache[(ell, id(orbit), a, p)] for p in ps}
         return out
+
+    def _hecke_rows(self, ell: int, a: int, x: int, ps: list[int]) -> np.ndarray:
+        """Rows T_p(x) modulo ℓ on the χ^a-space, cached per symbol: orbits whose
+        eigenvector is read at the same symbol (the first one, nearly always) share one
+        Heilbronn sum per p instead of one each."""
+        cache = self.__dict__.setdefault("_rows", {})
+        need = [p for p in ps if (ell, a, x, p) not in cache]
+        if need:
+            R = self.conj(ell, a).M.hecke_of_symbol(x, need)
+            for r, p in enumerate(need):
+                cache[(ell, a, x, p)] = R[r]
+        return np.stack([cache[(ell, a, x, p)] for p in ps])
 
     def good_primes_for(self, orbit: CharOrbit):
         for ell in self.primes():
@@ -473,27 +489,17 @@ class CharUnit:
 
 
     def orbit_charpoly(self, orbit: CharOrbit, q: int) -> flint.fmpz_poly:
-        """Absolute charpoly of T_q on the orbit (Π over conjugates, CRT, Deligne's bound)."""
+        """Absolute charpoly of T_q on the orbit: the norm of its relative charpoly (degree
+        d/φ(m), lifted to Z[ζ_m][x] as in ``charpoly``, Deligne's bound ρ = 2q^((k−1)/2))."""
         rho = isqrt(4 * q ** (self.k - 1)) + 1
-        need = 2 * (1 + rho) ** orbit.dim
-        res, mods, prod = [], [], 1
-        for ell in self.good_primes_for(orbit):
-            data = self._eigen(ell, orbit)
-            P = flint.nmod_poly([1], ell)
-            for a in self.conjugates:
-                Wf, wpiv = data[a][4]
-                P *= _charpoly_mod(_restrict_rows(Wf, wpiv, self.conj(ell, a).M.hecke(q), ell),
-                                   ell)
-            res.append([int(c) for c in P.coeffs()] + [0] * (orbit.dim + 1 - len(P.coeffs())))
-            mods.append(ell)
-            prod *= ell
-            if prod > need:
-                break
-        coeffs = []
-        for i in range(orbit.dim + 1):
-            x = _crt([r[i] for r in res], mods)
-            coeffs.append(x - prod if x > prod // 2 else x)
-        return flint.fmpz_poly(coeffs)
+
+        def image(ell: int, a: int) -> flint.nmod_poly:
+            Wf, wpiv = self._eigen(ell, orbit)[a][4]
+            return _charpoly_mod(_restrict_rows(Wf, wpiv, self.conj(ell, a).M.hecke(q), ell),
+                                 ell)
+
+        return self._norm_of_relative(self.good_primes_for(orbit), image,
+                                      orbit.dim // self.phi_m, rho)
 
     def ap_is_zero(self, orbit: CharOrbit, p: int) -> bool:
         """a_p = 0 exactly: zero modulo primes whose product exceeds twice the bound on

@@ -18,7 +18,7 @@ builder.forms.charforms pipeline certifies its spaces that way.
 
 from __future__ import annotations
 
-from functools import cached_property
+from functools import cached_property, lru_cache
 from math import gcd
 
 import numpy as np
@@ -28,6 +28,8 @@ from builder.linalg_modp import matmul_mod
 from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import poly_action
 from builder.symbols.p1 import P1, p1
+
+DENSE_COORDS_MAX = 8_000_000  # nsym·dim floats (64 MB) for the dense coordinate matrix
 
 
 def poly_action_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, w: int,
@@ -285,37 +287,65 @@ class CharSpace:
     def images(self, xs: np.ndarray, n: int) -> np.ndarray:
         """Rows T_n(x) (free coordinates mod ℓ) for the Manin symbols xs: every pair
         (symbol, Heilbronn matrix) at once, in chunks that bound the memory."""
-        ell, psi, w = self.ell, self.psi, self.w
-        a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
-        H = len(a)
-        A = poly_action_mod(a, b, c, d, w, ell) if w else None
+        H = len(hecke_matrices(n)[0])
         out = np.zeros((len(xs), max(self.dim, 1)))
         step = max(1, (1 << 21) // max(H, 1))
         for s0 in range(0, len(xs), step):
             chunk = xs[s0:s0 + step]
-            I, J = np.divmod(chunk, psi)
-            u, v = self.P1.c[J][:, None], self.P1.d[J][:, None]
-            t, chi = self._lookup((u * a + v * c).ravel(), (u * b + v * d).ravel())
-            gens = np.repeat(np.arange(len(chunk)), H)
-            ok = t >= 0
-            if w == 0:
-                rows, syms, coefs = gens[ok], t[ok], chi[ok]
-            else:
-                hh = np.tile(np.arange(H), len(chunk))[ok]
-                ii, t, chi, g = np.repeat(I, H)[ok], t[ok], chi[ok], gens[ok]
-                parts = []
-                for m in range(w + 1):
-                    cm = A[hh, ii, m]
-                    sel = cm != 0
-                    parts.append((g[sel], m * psi + t[sel], cm[sel] * chi[sel] % ell))
-                rows, syms, coefs = (np.concatenate(z) for z in zip(*parts, strict=True))
+            rows, syms, coefs = self._terms(chunk, n)
             if len(rows):
                 out[s0:s0 + len(chunk)] = self._accumulate(rows, syms, coefs, len(chunk))
         return out[:, : self.dim]
 
+    def _terms(self, xs: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """T_n(xs[r]) = Σ coef·[symbol] as (r, symbol, coef mod ℓ) triples (Merel [Me],
+        with χ(λ) for the P¹ lookups)."""
+        ell, psi, w = self.ell, self.psi, self.w
+        a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
+        H = len(a)
+        I, J = np.divmod(xs, psi)
+        u, v = self.P1.c[J][:, None], self.P1.d[J][:, None]
+        t, chi = self._lookup((u * a + v * c).ravel(), (u * b + v * d).ravel())
+        gens = np.repeat(np.arange(len(xs)), H)
+        ok = t >= 0
+        if w == 0:
+            return gens[ok], t[ok], chi[ok]
+        A = poly_action_mod(a, b, c, d, w, ell)
+        hh = np.tile(np.arange(H), len(xs))[ok]
+        ii, t, chi, g = np.repeat(I, H)[ok], t[ok], chi[ok], gens[ok]
+        parts = []
+        for m in range(w + 1):
+            cm = A[hh, ii, m]
+            sel = cm != 0
+            parts.append((g[sel], m * psi + t[sel], cm[sel] * chi[sel] % ell))
+        return tuple(np.concatenate(z) for z in zip(*parts, strict=True))
+
     def hecke_of_symbol(self, x: int, ns: list[int]) -> np.ndarray:
-        """Rows T_n(x) for one Manin symbol x and several n (one Heilbronn sum each)."""
-        return np.concatenate([self.images(np.array([x], dtype=np.int64), n) for n in ns])
+        """Rows T_n(x) for one Manin symbol x and several n.
+
+        Each T_n(x) is first a vector over the Manin symbols (one bincount of its
+        Heilbronn terms), and all of them are then expressed in the free generators by one
+        product with the dense coordinate matrix: the cost is the number of terms plus
+        nsym·dim, not terms × the length of each symbol's expression."""
+        if self.nsym * self.dim > DENSE_COORDS_MAX:
+            return np.concatenate([self.images(np.array([x], dtype=np.int64), n)
+                                   for n in ns])
+        ell = self.ell
+        W = np.zeros((len(ns), self.nsym))
+        one = np.array([x], dtype=np.int64)
+        for r, n in enumerate(ns):
+            _, syms, coefs = self._terms(one, n)
+            W[r] = _bincount_mod(syms, coefs, self.nsym, ell)
+        return np.mod(matmul_mod(W, self._dense_coords, ell), ell)
+
+    @cached_property
+    def _dense_coords(self) -> np.ndarray:
+        """The coordinates of every Manin symbol (nsym × dim, residues mod ℓ)."""
+        indptr, gen, val = self._csr
+        out = np.zeros((self.nsym, self.dim))
+        rows = np.repeat(np.arange(self.nsym), np.diff(indptr))
+        np.add.at(out, (rows, gen), val.astype(np.float64))
+        return np.mod(out, self.ell)
 
     def coords_row(self, x: int) -> np.ndarray:
         indptr, gen, val = self._csr
@@ -338,149 +368,147 @@ class CharSpace:
         column (u, v); e(γ(u, v)) = χ(d_γ)·e(u, v) for γ ∈ Γ0(N), and e(u, v) = s·e(−u, v)
         for the sign s.  Columns up to Γ1(N) are keys (v mod N, u mod gcd(v, N)) (two
         columns are Γ1(N)-equivalent iff v' ≡ v mod N and u' ≡ u mod gcd(v, N), [St] §3);
-        γ ∈ Γ0(N) with lower right entry δ maps the key (v, u) to (δv, δ⁻¹u).  A weighted
-        union–find over the keys under generators of (Z/NZ)^× and the sign gives the
-        classes and the scalars; a class whose relations are inconsistent (χ nontrivial on
-        its stabiliser) is zero.
+        the classes of the keys and their scalars come from ``_boundary_classes``.
         """
-        N, ell, w = self.N, self.ell, self.w
-        g_of = np.array([gcd(v, N) if v else N for v in range(N)], dtype=np.int64)
-        off = np.concatenate([[0], np.cumsum(g_of)])
-        uf = _WeightedUnionFind(int(off[-1]), ell)
-        for dd in unit_generators(N):
-            dinv = pow(dd, -1, N) if N > 1 else 0
-            chi = int(self.values[dd % N]) if N > 1 else 1
-            for v in range(N):
-                g = int(g_of[v])
-                v2 = dd * v % N
-                for u in range(g):
-                    if gcd(u, g) == 1:
-                        # e(δ·K) = χ(δ)·e(K)
-                        uf.union(int(off[v2]) + dinv * u % g, int(off[v]) + u, chi)
-        if self.sign:
-            for v in range(N):
-                g = int(g_of[v])
-                for u in range(g):
-                    if gcd(u, g) == 1:
-                        uf.union(int(off[v]) + u, int(off[v]) + (-u) % g, self.sign % ell)
-        classes: dict[int, int] = {}
-        rows = np.zeros((self.dim, 0))
-        entries: list[tuple[int, int, int]] = []
+        ell, w = self.ell, self.w
         free = np.array(self.free, dtype=np.int64)
         I, J = np.divmod(free, self.psi)
         c, d = self.P1.c[J], self.P1.d[J]
         from builder.symbols.space import _complete_vec
 
         a, b = _complete_vec(c, d)
-        for r in range(len(free)):
-            terms = []
-            if I[r] == w:
-                terms.append((int(a[r]), int(c[r]), 1))
-            if I[r] == 0:
-                terms.append((int(b[r]), int(d[r]), ell - 1))
-            for u, v, sgn in terms:
-                vv = v % N
-                g = int(g_of[vv])
-                root, m = uf.find(int(off[vv]) + u % g)
-                if uf.zero[root]:
-                    continue
-                col = classes.setdefault(root, len(classes))
-                entries.append((r, col, sgn * m % ell))
-        rows = np.zeros((self.dim, len(classes)))
-        for r, col, val in entries:
-            rows[r, col] = (rows[r, col] + val) % ell
-        return rows
+        top, bottom = I == w, I == 0
+        rows = np.concatenate([np.nonzero(top)[0], np.nonzero(bottom)[0]])
+        U = np.concatenate([a[top], b[bottom]])
+        V = np.concatenate([c[top], d[bottom]])
+        sgn = np.concatenate([np.ones(int(top.sum()), dtype=np.int64),
+                              np.full(int(bottom.sum()), ell - 1, dtype=np.int64)])
+        root, mult = self._boundary_classes(U, V)
+        live = root >= 0
+        roots, col = np.unique(root[live], return_inverse=True)
+        out = np.zeros((self.dim, len(roots)))
+        np.add.at(out, (rows[live], col), (sgn[live] * mult[live] % ell).astype(np.float64))
+        return np.mod(out, ell)
 
-    # -- modular symbols and degeneracy maps ----------------------------------------------------
-    def symbol_terms(self, poly: list[int], alpha: tuple[int, int],
-                     beta: tuple[int, int]) -> list[tuple[int, int]]:
-        """P(X, Y){α, β} as (Manin symbol index, coefficient mod ℓ) pairs: convergents of the
-        continued fractions of α and β ([Ma], [Cr] §2.1), each symbol with its χ(λ)."""
-        out: list[tuple[int, int]] = []
-        self._from_zero(poly, beta, 1, out)
-        self._from_zero(poly, alpha, -1, out)
-        return out
+    def _boundary_classes(self, U: np.ndarray, V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """For boundary symbols e(u, v) (u, v coprime): (class, m) with e(u, v) = m·e(class),
+        class = −1 where the class is zero.  Keys up to Γ1(N) are (v mod N, u mod gcd(v, N))
+        and γ ∈ Γ0(N) with lower right entry δ maps (v, u) to (δv, δ⁻¹u) with e(γK) =
+        χ(δ)e(K) (the sign: e(v, u) = s·e(v, −u)), so a class is an orbit of (Z/NZ)^× × {±1}
+        — enumerated for all keys at once — its representative the smallest key, and it is
+        zero iff a stabiliser element has a scalar ≠ 1 ([St] §8.4)."""
+        N = self.N
+        units, inv = _units_and_inverses(N)
+        step = max(1, (1 << 20) // len(units))  # bounded memory: keys × units per chunk
+        parts = [self._classes_chunk(U[i:i + step], V[i:i + step], units, inv)
+                 for i in range(0, len(U), step)]
+        if not parts:
+            return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+        return (np.concatenate([r for r, _ in parts]), np.concatenate([m for _, m in parts]))
 
-    def _from_zero(self, poly: list[int], cusp: tuple[int, int], sgn: int, out: list) -> None:
-        from builder.symbols.space import convergents
+    def _classes_chunk(self, U: np.ndarray, V: np.ndarray, units: np.ndarray,
+                       inv: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        N, ell = self.N, self.ell
+        vv = np.mod(V, N)
+        g = np.where(vv == 0, N, np.gcd(vv, N))
+        u0 = np.mod(U, g)
+        key0 = vv * N + u0  # injective: u < g ≤ N
+        n = len(U)
+        best = np.full(n, np.iinfo(np.int64).max)
+        mult = np.ones(n, dtype=np.int64)
+        zero = np.zeros(n, dtype=bool)
+        for e in ([1, -1] if self.sign else [1]):
+            s = 1 if e == 1 else self.sign % ell
+            key = np.mod(vv[:, None] * units[None, :], N) * N + np.mod(
+                e * u0[:, None] * inv[None, :], g[:, None])
+            # e(image) = χ(δ)·s^[e = −1]·e(K), so e(K) = χ(δ⁻¹)·s^[e = −1]·e(image)
+            wt = self.values[units % N] * s % ell
+            zero |= np.any((key == key0[:, None]) & (wt[None, :] != 1), axis=1)
+            arg = np.argmin(key, axis=1)
+            kmin = key[np.arange(n), arg]
+            better = kmin < best
+            best = np.where(better, kmin, best)
+            mult = np.where(better, self.values[inv[arg] % N] * s % ell, mult)
+        return np.where(zero, -1, best), mult
 
-        u, v = cusp
-        if v < 0:
-            u, v = -u, -v
-        if v == 0:
-            self._poly_terms(poly, (1, 0, 0, 1), sgn, out)
-            return
-        gg = gcd(u, v)
-        cv = convergents(u // gg, v // gg)
-        for j in range(1, len(cv)):
-            (p0, q0), (p1, q1) = cv[j - 1], cv[j]
-            mat = (p1, p0, q1, q0) if p1 * q0 - p0 * q1 == 1 else (-p1, p0, -q1, q0)
-            self._poly_terms(poly, mat, sgn, out)
-
-    def _poly_terms(self, poly: list[int], g: tuple[int, int, int, int], sgn: int,
-                    out: list) -> None:
-        a, b, c, d = g
-        j, lam = self.P1.index_scalar(np.array([c]), np.array([d]))
-        if j[0] < 0:
-            return
-        chi = int(self.values[int(lam[0])]) * sgn
-        A = poly_action(a, b, c, d, self.w)
-        for i, pi in enumerate(poly):
-            if pi:
-                for m, coef in enumerate(A[i]):
-                    if coef:
-                        out.append((m * self.psi + int(j[0]), pi * coef * chi % self.ell))
-
+    # -- degeneracy maps -------------------------------------------------------------------------
     def degeneracy(self, target: CharSpace, t: int) -> np.ndarray:
         """The degeneracy map to level M = target.N induced by z ↦ t z (t·M | N), modulo ℓ:
         x = P{α, β} ↦ (P|[[1, 0], [0, t]]){tα, tβ} ([St] §8.6; the conjugate of Γ0(N) by
-        diag(t, 1) keeps the lower right entries, so χ restricted to M is respected)."""
-        from builder.symbols.space import _act, _complete, _reduce
-
+        diag(t, 1) keeps the lower right entries, so χ restricted to M is respected).  The
+        Manin symbols of each image do not depend on χ or ℓ (``_degeneracy_terms``, cached
+        across the conjugates and primes of a unit); χ(λ) is applied here."""
         if self.N % (t * target.N):
             raise ValueError(f"degeneracy map needs t·M | N, got t={t}, M={target.N}")
+        ell = self.ell
         rows, syms, coefs = [], [], []
         for r, x in enumerate(self.free):
-            i, j = divmod(x, self.psi)
-            c, d = int(self.P1.c[j]), int(self.P1.d[j])
-            a, b = _complete(c, d)
-            poly = [0] * (self.w + 1)
-            poly[i] = 1
-            p2 = _act(_act(poly, (d, -b, -c, a), self.w), (1, 0, 0, t), self.w)
-            for sym, cf in target.symbol_terms(p2, _reduce((t * b, d)), _reduce((t * a, c))):
-                rows.append(r)
-                syms.append(sym)
-                coefs.append(cf % self.ell)
-        if not rows:
+            sym, coef, lam = _degeneracy_terms(self.N, self.k, target.N, t, int(x))
+            rows.append(np.full(len(sym), r, dtype=np.int64))
+            syms.append(sym)
+            coefs.append(np.mod(coef, ell).astype(np.int64) * target.values[lam] % ell)
+        if not rows or not sum(len(z) for z in syms):
             return np.zeros((self.dim, target.dim))
-        return target._accumulate(np.array(rows, dtype=np.int64), np.array(syms, dtype=np.int64),
-                                  np.array(coefs, dtype=np.int64), self.dim)
+        return target._accumulate(np.concatenate(rows), np.concatenate(syms),
+                                  np.concatenate(coefs), self.dim)
 
 
-def unit_generators(N: int) -> list[int]:
-    """A generating set of (Z/NZ)^× (greedy: each generator outside the subgroup so far)."""
-    if N <= 2:
-        return [1]
-    units = [x for x in range(1, N) if gcd(x, N) == 1]
-    group = {1}
-    gens = []
-    for x in units:
-        if x in group:
+@lru_cache(maxsize=1 << 16)
+def _degeneracy_terms(N: int, k: int, M: int, t: int,
+                      x: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The image of the Manin symbol x of level N under the degeneracy map to level M by t,
+    as level-M terms (symbol index, integer coefficient, λ) with value coefficient·χ(λ):
+    x = P{g0, g∞} ↦ (P|[[1, 0], [0, t]]){tα, tβ}, each path from 0 cut along the
+    convergents of its continued fraction ([Ma], [Cr] §2.1)."""
+    from builder.symbols.space import _act, _complete, _reduce
+
+    w = k - 2
+    P = p1(N)
+    i, j = divmod(x, len(P))
+    c, d = int(P.c[j]), int(P.d[j])
+    a, b = _complete(c, d)
+    poly = [0] * (w + 1)
+    poly[i] = 1
+    p2 = _act(_act(poly, (d, -b, -c, a), w), (1, 0, 0, t), w)
+    out: list[tuple[int, int, int]] = []
+    _from_zero(p1(M), w, p2, _reduce((t * b, d)), _reduce((t * a, c)), out)
+    sym = np.array([o[0] for o in out], dtype=np.int64)
+    lam = np.array([o[2] for o in out], dtype=np.int64)
+    return sym, np.array([o[1] for o in out], dtype=object), lam
+
+
+def _from_zero(P: P1, w: int, poly: list[int], alpha: tuple[int, int], beta: tuple[int, int],
+               out: list) -> None:
+    """P{α, β} = P{0, β} − P{0, α} as (symbol, coefficient, λ) terms appended to out."""
+    from builder.symbols.space import convergents
+
+    for (u, v), sgn in ((beta, 1), (alpha, -1)):
+        if v < 0:
+            u, v = -u, -v
+        if v == 0:
+            _poly_terms(P, w, poly, (1, 0, 0, 1), sgn, out)
             continue
-        gens.append(x)
-        new = set(group)
-        frontier = list(group)
-        while frontier:
-            y = frontier.pop()
-            for gq in gens:
-                z = y * gq % N
-                if z not in new:
-                    new.add(z)
-                    frontier.append(z)
-        group = new
-        if len(group) == len(units):
-            break
-    return gens
+        gg = gcd(u, v)
+        cv = convergents(u // gg, v // gg)
+        for j in range(1, len(cv)):
+            (p0, q0), (p1_, q1) = cv[j - 1], cv[j]
+            mat = (p1_, p0, q1, q0) if p1_ * q0 - p0 * q1 == 1 else (-p1_, p0, -q1, q0)
+            _poly_terms(P, w, poly, mat, sgn, out)
+
+
+def _poly_terms(P: P1, w: int, poly: list[int], g: tuple[int, int, int, int], sgn: int,
+                out: list) -> None:
+    a, b, c, d = g
+    j, lam = P.index_scalar(np.array([c]), np.array([d]))
+    if j[0] < 0:
+        return
+    A = poly_action(a, b, c, d, w)
+    psi = len(P)
+    for i, pi in enumerate(poly):
+        if pi:
+            for m, coef in enumerate(A[i]):
+                if coef:
+                    out.append((m * psi + int(j[0]), pi * coef * sgn, int(lam[0])))
 
 
 def _eliminate_mod(relations: list[dict[int, int]], ell: int) -> dict[int, dict[int, int]]:
@@ -527,3 +555,24 @@ def _eliminate_mod(relations: list[dict[int, int]], ell: int) -> dict[int, dict[
         for h in expr:
             occurs.setdefault(h, set()).add(q)
     return pivots
+
+
+def _bincount_mod(idx: np.ndarray, coef: np.ndarray, n: int, ell: int) -> np.ndarray:
+    """Σ coef over equal indices, modulo ℓ (float sums kept below 2^52: exact)."""
+    out = np.zeros(n)
+    step = max(1, int((1 << 52) // ell))
+    for s0 in range(0, len(idx), step):
+        out += np.bincount(idx[s0:s0 + step], weights=coef[s0:s0 + step].astype(np.float64),
+                           minlength=n)
+        np.mod(out, ell, out=out)
+    return out
+
+
+@lru_cache(maxsize=64)
+def _units_and_inverses(N: int) -> tuple[np.ndarray, np.ndarray]:
+    """(Z/NZ)^× as integers in [1, N) (N ≤ 2: [1]) and their inverses modulo N."""
+    if N <= 2:
+        return np.array([1], dtype=np.int64), np.array([1], dtype=np.int64)
+    units = [x for x in range(1, N) if gcd(x, N) == 1]
+    return (np.array(units, dtype=np.int64),
+            np.array([pow(x, -1, N) for x in units], dtype=np.int64))
