@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from builder.characters import character_orbit, character_orbits, primes_one_mod
-from builder.symbols.charspace import char_space, poly_action_mod
+from builder.symbols.charspace import char_space, poly_action_mod, poly_action_row_mod
 from builder.symbols.manin import poly_action
 from builder.symbols.space import SymbolSpace
 
@@ -34,6 +34,18 @@ def test_vectorised_polynomial_action_matches_the_exact_one(abcd, w):
     A = poly_action_mod(a, b, c, d, w, ELL)[0]
     B = np.array([[x % ELL for x in row] for row in poly_action(*abcd, w)], dtype=np.int64)
     assert (A == B).all()
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.integers(-10**6, 10**6), min_size=4, max_size=4), st.integers(0, 14),
+       st.integers(0, 14))
+def test_one_row_of_the_polynomial_action(abcd, w, i):
+    """Row i alone (one Manin symbol's monomial) = row i of the exact action, mod ℓ
+    (common practice: the binomial expansion of (aX + bY)^i (cX + dY)^(w−i))."""
+    i = min(i, w)
+    a, b, c, d = (np.array([x], dtype=np.int64) for x in abcd)
+    row = poly_action_row_mod(a, b, c, d, i, w, ELL)[0]
+    assert row.tolist() == [x % ELL for x in poly_action(*abcd, w)[i]]
 
 
 @pytest.mark.parametrize("N,k", [(11, 2), (23, 4), (15, 6), (36, 4), (8, 8), (1, 12)])

@@ -322,9 +322,12 @@ class CharUnit:
         return self.split[1]
 
     # -- eigen-data modulo ℓ --------------------------------------------------------------------
-    def _eigen(self, ell: int, orbit: CharOrbit):
-        """Per conjugate a: (f_a, φ on the free generators (n × d_a), v, φ(v)⁻¹) or None."""
-        cache = self.__dict__.setdefault("_eig", {})
+    def _rows(self, ell: int, orbit: CharOrbit):
+        """Per conjugate a: (f_a, T on V, W_f, pivots) — f_a = gcd(F mod ℓ, charpoly of T
+        on V(χ^a)) and W_f = ker f_a(T) on V as rows in M coordinates — or None if ℓ is
+        bad for the orbit (F not squarefree or not coprime to the rest modulo ℓ, or a
+        kernel of the wrong dimension)."""
+        cache = self.__dict__.setdefault("_orbit_rows", {})
         key = (ell, id(orbit))
         if key in cache:
             return cache[key]
@@ -343,7 +346,27 @@ class CharUnit:
                 out = None
                 break
             fa = fa * flint.nmod_poly([pow(int(fa.coeffs()[-1]), -1, ell)], ell)
-            piece = self._functionals(st, combo, A, fa)
+            # the orbit inside V: rows W_f (in M coordinates) = ker f_a(T) on V
+            Kf = _left_kernel(_poly_at(fa, A, ell), ell)
+            Wf, wpiv = _rows_basis(matmul_mod(Kf, st.V, ell), ell)
+            if Wf.shape[0] != fa.degree():
+                out = None
+                break
+            out[a] = (fa, A, Wf, wpiv)
+        cache[key] = out
+        return out
+
+    def _eigen(self, ell: int, orbit: CharOrbit):
+        """Per conjugate a: (f_a, φ on the free generators (n × d_a), v, φ(v)⁻¹) or None."""
+        cache = self.__dict__.setdefault("_eig", {})
+        key = (ell, id(orbit))
+        if key in cache:
+            return cache[key]
+        rows = self._rows(ell, orbit)
+        out: dict | None = None if rows is None else {}
+        for a in self.conjugates if out is not None else ():
+            fa, _, Wf, wpiv = rows[a]
+            piece = self._functionals(self.conj(ell, a), self.split[0], fa, Wf, wpiv)
             if piece is None:
                 out = None
                 break
@@ -351,15 +374,10 @@ class CharUnit:
         cache[key] = out
         return out
 
-    def _functionals(self, st: _Conj, combo: tuple, A: np.ndarray, fa):
+    def _functionals(self, st: _Conj, combo: tuple, fa, Wf: np.ndarray, wpiv: list[int]):
         """The orbit's functionals on M as an eigenvector over F_ℓ[x]/(f_a) (module doc)."""
         ell, M = st.ell, st.M
         d = fa.degree()
-        # the orbit inside V: rows W_f (in M coordinates) = ker f_a(T) on V
-        Kf = _left_kernel(_poly_at(fa, A, ell), ell)
-        Wf, wpiv = _rows_basis(matmul_mod(Kf, st.V, ell), ell)
-        if Wf.shape[0] != d:
-            return None
         # its functionals: columns U with f_a(T)·U = 0 on M*, cut further by other operators
         T = st.combo_full(combo)
         U, _ = _kernel_mod(_poly_at(fa, np.ascontiguousarray(T), ell), ell)
@@ -388,7 +406,7 @@ class CharUnit:
             gg, s_, _ = val.xgcd(fa)
             if gg.degree() == 0:
                 inv = s_ * flint.nmod_poly([pow(int(gg.coeffs()[0]), -1, ell)], ell)
-                return fa, phi, t, inv, (Wf, wpiv)
+                return fa, phi, t, inv
         return None
 
     def aps_mod(self, orbit: CharOrbit, ps: list[int], ell: int) -> dict | None:
@@ -398,7 +416,7 @@ class CharUnit:
             return None
         cache = self.__dict__.setdefault("_aps", {})
         out = {}
-        for a, (fa, phi, v, inv, _w) in data.items():
+        for a, (fa, phi, v, inv) in data.items():
             want = [p for p in ps if (ell, id(orbit), a, p) not in cache]
             if want:
                 rows = self._hecke_rows(ell, a, self.conj(ell, a).M.free[v], want)
@@ -413,7 +431,7 @@ class CharUnit:
         """Rows T_p(x) modulo ℓ on the χ^a-space, cached per symbol: orbits whose
         eigenvector is read at the same symbol (the first one, nearly always) share one
         Heilbronn sum per p instead of one each."""
-        cache = self.__dict__.setdefault("_rows", {})
+        cache = self.__dict__.setdefault("_hecke_row_cache", {})
         need = [p for p in ps if (ell, a, x, p) not in cache]
         if need:
             R = self.conj(ell, a).M.hecke_of_symbol(x, need)
@@ -490,16 +508,19 @@ class CharUnit:
 
     def orbit_charpoly(self, orbit: CharOrbit, q: int) -> flint.fmpz_poly:
         """Absolute charpoly of T_q on the orbit: the norm of its relative charpoly (degree
-        d/φ(m), lifted to Z[ζ_m][x] as in ``charpoly``, Deligne's bound ρ = 2q^((k−1)/2))."""
+        d/φ(m), lifted to Z[ζ_m][x] as in ``charpoly``, Deligne's bound ρ = 2q^((k−1)/2));
+        the orbit's rows W_f suffice, not its functionals."""
+        if len(self.orbits) == 1:
+            return self.charpoly(None, which=q)  # the whole new part: its spaces are built
         rho = isqrt(4 * q ** (self.k - 1)) + 1
 
         def image(ell: int, a: int) -> flint.nmod_poly:
-            Wf, wpiv = self._eigen(ell, orbit)[a][4]
+            _, _, Wf, wpiv = self._rows(ell, orbit)[a]
             return _charpoly_mod(_restrict_rows(Wf, wpiv, self.conj(ell, a).M.hecke(q), ell),
                                  ell)
 
-        return self._norm_of_relative(self.good_primes_for(orbit), image,
-                                      orbit.dim // self.phi_m, rho)
+        primes = (ell for ell in self.primes() if self._rows(ell, orbit) is not None)
+        return self._norm_of_relative(primes, image, orbit.dim // self.phi_m, rho)
 
     def ap_is_zero(self, orbit: CharOrbit, p: int) -> bool:
         """a_p = 0 exactly: zero modulo primes whose product exceeds twice the bound on

@@ -57,46 +57,26 @@ def poly_action_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, 
     return A
 
 
-class _WeightedUnionFind:
-    """x = mult·parent(x) over F_ℓ; roots may be forced to zero."""
+def poly_action_row_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, i: int,
+                        w: int, ell: int) -> np.ndarray:
+    """Row i of ``poly_action_mod``: A[h, m] = coefficient of X^m Y^(w−m) in
+    (a_h X + b_h Y)^i (c_h X + d_h Y)^(w−i) modulo ℓ < 2^21 (O(w²) per matrix, not O(w³))."""
+    a, b, c, d = (np.mod(x, ell) for x in (a, b, c, d))
 
-    def __init__(self, n: int, ell: int) -> None:
-        self.parent = list(range(n))
-        self.mult = [1] * n
-        self.zero = [False] * n
-        self.ell = ell
+    def power(x: np.ndarray, y: np.ndarray, e: int) -> np.ndarray:
+        out = np.ones((len(x), 1), dtype=np.int64)
+        for _ in range(e):
+            nxt = np.zeros((len(x), out.shape[1] + 1), dtype=np.int64)
+            nxt[:, 1:] += out * x[:, None]
+            nxt[:, :-1] += out * y[:, None]
+            out = np.mod(nxt, ell)
+        return out
 
-    def find(self, x: int) -> tuple[int, int]:
-        ell = self.ell
-        path = []
-        m = 1
-        while self.parent[x] != x:
-            path.append(x)
-            m = m * self.mult[x] % ell
-            x = self.parent[x]
-        root = x
-        acc = m
-        for y in path:  # compress: y = acc·root, then step along
-            ym = acc
-            acc = acc * pow(self.mult[y], -1, ell) % ell
-            self.parent[y] = root
-            self.mult[y] = ym
-        return root, m
-
-    def union(self, x: int, y: int, s: int) -> None:
-        """Impose x = s·y."""
-        ell = self.ell
-        rx, a = self.find(x)
-        ry, b = self.find(y)
-        # x = a·rx, y = b·ry: rx = s·b·a⁻¹·ry
-        t = s * b % ell * pow(a, -1, ell) % ell
-        if rx == ry:
-            if t != 1:
-                self.zero[rx] = True
-            return
-        self.parent[rx] = ry
-        self.mult[rx] = t
-        self.zero[ry] = self.zero[ry] or self.zero[rx]
+    P, Q = power(a, b, i), power(c, d, w - i)
+    A = np.zeros((len(a), w + 1), dtype=np.int64)
+    for s_ in range(i + 1):
+        A[:, s_:s_ + w - i + 1] = np.mod(A[:, s_:s_ + w - i + 1] + P[:, s_:s_ + 1] * Q, ell)
+    return A
 
 
 def char_space(N: int, k: int, chi: CharacterOrbit, sign: int, ell: int,
@@ -157,37 +137,9 @@ class CharSpace:
         return j, np.where(j >= 0, self.values[lam], 0)
 
     def _build(self) -> None:
-        w, psi, ell = self.w, self.psi, self.ell
-        c, d = self.P1.c, self.P1.d
-        sig_j, sig_x = self._lookup(d, -c)
-        eta_j, eta_x = self._lookup(-c, d)
-        uf = _WeightedUnionFind(self.nsym, ell)
-        sig_j, sig_x = sig_j.tolist(), sig_x.tolist()
-        eta_j, eta_x = eta_j.tolist(), eta_x.tolist()
-        for i in range(w + 1):
-            si = -1 if i % 2 else 1
-            for j in range(psi):
-                x = i * psi + j
-                # x + xσ = 0, xσ = (−1)^i χ(λ) [X^(w−i) Y^i, rep]: x = −(−1)^i χ(λ)·x'
-                uf.union(x, (w - i) * psi + sig_j[j], (-si * sig_x[j]) % ell)
-                if self.sign:
-                    # x = s·x*, x* = (−1)^i χ(λ) [X^i Y^(w−i), rep(−c, d)]
-                    uf.union(x, i * psi + eta_j[j], (self.sign * si * eta_x[j]) % ell)
-        root_of = [0] * self.nsym
-        mult = [0] * self.nsym
-        roots: dict[int, int] = {}
-        for x in range(self.nsym):
-            r, m = uf.find(x)
-            if uf.zero[r]:
-                root_of[x] = -1
-                continue
-            if r not in roots:
-                roots[r] = len(roots)
-            root_of[x], mult[x] = roots[r], m
-        ngen = len(roots)
-        gen_symbol = [0] * ngen
-        for r, g in roots.items():
-            gen_symbol[g] = r
+        ell = self.ell
+        root_of, mult, gen_symbol = self._two_term_classes()
+        ngen = len(gen_symbol)
         rels = self._three_term(root_of, mult)
         pivots = _eliminate_mod(rels, ell)
         free_gens = [g for g in range(ngen) if g not in pivots]
@@ -210,6 +162,49 @@ class CharSpace:
             indptr.append(len(gens))
         self._csr = (np.array(indptr, dtype=np.int64), np.array(gens, dtype=np.int64),
                      np.array(vals, dtype=np.int64))
+
+    def _two_term_classes(self) -> tuple[list[int], list[int], list[int]]:
+        """The two-term relations: x + xσ = 0 and (sign s) x = s·x*, as x = m·y with
+        xσ = (−1)^i χ(λ)[X^(w−i) Y^i, rep] and x* = (−1)^i χ(λ)[X^i Y^(w−i), rep(−c, d)]
+        ([St] §8.3 with character).  σ and η generate a group of order ≤ 4 on the symbol
+        indices, so the class of x is {x, σx, ηx, σηx}: its generator is the smallest index,
+        x = mult·generator along the paths from x, and the class is zero iff the scalars
+        are inconsistent somewhere on it (σ² or η² ≠ 1, ση ≠ ησ, or a stabiliser with a
+        scalar ≠ 1) — what a weighted union–find would find, for all x at once.
+        Returns (generator number or −1 per symbol, mult per symbol, generator symbols)."""
+        w, psi, ell, n = self.w, self.psi, self.ell, self.nsym
+        c, d = self.P1.c, self.P1.d
+        x = np.arange(n, dtype=np.int64)
+        i, j = np.divmod(x, psi)
+        si = np.where(i % 2 == 1, -1, 1)
+        sig_j, sig_x = self._lookup(d, -c)
+        S = (w - i) * psi + sig_j[j]
+        ms = np.mod(-si * sig_x[j], ell)  # x = ms·S(x)
+        if self.sign:
+            eta_j, eta_x = self._lookup(-c, d)
+            E = i * psi + eta_j[j]
+            me = np.mod(self.sign * si * eta_x[j], ell)  # x = me·E(x)
+        else:
+            E, me = x, np.ones(n, dtype=np.int64)
+        SE = S[E]
+        mse = me * ms[E] % ell  # x = me·ms(E x)·S(E x)
+        fail = (ms * ms[S] % ell != 1) | (me * me[E] % ell != 1)
+        fail |= mse != ms * me[S] % ell  # the two paths to σηx agree
+        for img, m in ((S, ms), (E, me), (SE, mse)):
+            fail |= (img == x) & (m != 1)
+        cand = np.stack([x, S, E, SE])
+        coef = np.stack([np.ones(n, dtype=np.int64), ms, me, mse])
+        k = np.argmin(cand, axis=0)
+        rep = cand[k, x]
+        m = coef[k, x]
+        bad = np.zeros(n, dtype=bool)
+        np.logical_or.at(bad, rep, fail)
+        zero = bad[rep]
+        gens = np.unique(rep[~zero])
+        number = np.full(n, -1, dtype=np.int64)
+        number[gens] = np.arange(len(gens))
+        root_of = np.where(zero, -1, number[rep])
+        return root_of.tolist(), np.where(zero, 0, m).tolist(), gens.tolist()
 
     def _three_term(self, root_of: list[int], mult: list[int]) -> list[dict[int, int]]:
         """x + xτ + xτ² = 0 for one base point per τ-orbit and every monomial."""
@@ -310,7 +305,12 @@ class CharSpace:
         ok = t >= 0
         if w == 0:
             return gens[ok], t[ok], chi[ok]
-        A = poly_action_mod(a, b, c, d, w, ell)
+        levels = np.unique(I)
+        if len(levels) == 1:  # one monomial X^i Y^(w−i): only row i of the action
+            A = poly_action_row_mod(a, b, c, d, int(levels[0]), w, ell)[:, None, :]
+            I = np.zeros_like(I)
+        else:
+            A = poly_action_mod(a, b, c, d, w, ell)
         hh = np.tile(np.arange(H), len(xs))[ok]
         ii, t, chi, g = np.repeat(I, H)[ok], t[ok], chi[ok], gens[ok]
         parts = []
