@@ -56,3 +56,29 @@ def test_nearest_integer_ties_to_even():
     assert _nearest(7, -3) == -2 and _nearest(8, 3) == 3
     with pytest.raises(ValueError):
         cremona_prime(2)
+
+
+def _sequential(p: int) -> list[tuple[int, int, int, int]]:
+    """[Cr] §2.4 written out one r at a time: [[1, 0], [0, p]], then for |r| < p/2 the
+    matrices met while expanding −p/r by nearest-integer continued fractions."""
+    out = [(1, 0, 0, p)]
+    for r in range(-(p // 2), p // 2 + 1):
+        x1, x2, y1, y2, a, b = p, -r, 0, 1, -p, r
+        out.append((x1, x2, y1, y2))
+        while b != 0:
+            q = _nearest(a, b)
+            a, b = -b, a - b * q
+            x1, x2 = x2, q * x2 - x1
+            y1, y2 = y2, q * y2 - y1
+            out.append((x1, x2, y1, y2))
+    return out
+
+
+@pytest.mark.parametrize("p", [3, 5, 7, 11, 101, 997, 7919])
+def test_vectorised_set_is_the_sequential_one(p):
+    """The numpy construction (all r in lockstep) gives the same matrices in the same
+    order as the expansion r by r, and every matrix has determinant p."""
+    a, b, c, d = cremona_prime(p)
+    assert list(zip(a.tolist(), b.tolist(), c.tolist(), d.tolist(), strict=True)) == (
+        _sequential(p))
+    assert set((a * d - b * c).tolist()) == {p}

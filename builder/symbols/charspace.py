@@ -9,8 +9,11 @@ x* = [P(−X, Y), (−c, d)] — each term carrying the χ(λ) of its point.
 
 Everything is over F_ℓ, χ reduced by builder.characters (ζ_m ↦ ω_ℓ); ``conj`` = a uses
 χ^a, so the Galois conjugate spaces come from the same ℓ.  The 2-term and star relations
-identify symbols in pairs up to a scalar of F_ℓ^×: a weighted union–find (a cycle whose
-scalar is not 1 kills its class); the 3-term relations are eliminated sparsely mod ℓ.
+identify symbols up to a scalar of F_ℓ^×: the classes are the orbits of the group of
+order ≤ 4 that σ and η generate, found for all symbols at once (a cycle whose scalar is
+not 1 kills its class); the 3-term relations are eliminated sparsely mod ℓ.  What does
+not depend on χ or ℓ (the Manin symbols of degeneracy images) is cached across the
+conjugates and primes of a unit.
 Dimensions can only grow modulo ℓ (ranks drop), so a subspace whose dimension equals the
 exact one given by a dimension formula is the reduction of the exact subspace: the
 builder.forms.charforms pipeline certifies its spaces that way.

@@ -74,18 +74,40 @@ def cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarra
     """
     if p < 3 or p % 2 == 0:
         raise ValueError(f"cremona_prime needs an odd prime, got {p}")
-    out = [(1, 0, 0, p)]
-    for r in range(-(p // 2), p // 2 + 1):
-        x1, x2, y1, y2, a, b = p, -r, 0, 1, -p, r
-        out.append((x1, x2, y1, y2))
-        while b != 0:
-            q = _nearest(a, b)
-            a, b = -b, a - b * q
-            x1, x2 = x2, q * x2 - x1
-            y1, y2 = y2, q * y2 - y1
-            out.append((x1, x2, y1, y2))
-    arr = np.array(out, dtype=np.int64)
-    return arr[:, 0], arr[:, 1], arr[:, 2], arr[:, 3]
+    # every r at once, one continued-fraction step per round (numpy), then the matrices
+    # put back in the order of the sequential expansion: by r, then by step
+    r = np.arange(-(p // 2), p // 2 + 1, dtype=np.int64)
+    idx = np.arange(len(r), dtype=np.int64)
+    x1, x2 = np.full(len(r), p, dtype=np.int64), -r
+    y1, y2 = np.zeros(len(r), dtype=np.int64), np.ones(len(r), dtype=np.int64)
+    a, b = np.full(len(r), -p, dtype=np.int64), r.copy()
+    parts = [(idx, 0, x1, x2, y1, y2)]
+    step = 0
+    while len(idx):
+        live = b != 0
+        idx, x1, x2, y1, y2, a, b = (z[live] for z in (idx, x1, x2, y1, y2, a, b))
+        if not len(idx):
+            break
+        q = _nearest_vec(a, b)
+        a, b = -b, a - b * q
+        x1, x2 = x2, q * x2 - x1
+        y1, y2 = y2, q * y2 - y1
+        step += 1
+        parts.append((idx, step, x1, x2, y1, y2))
+    key = np.concatenate([i * (step + 1) + t for i, t, *_ in parts])
+    order = np.argsort(key, kind="stable")
+    cols = [np.concatenate([np.array([v], dtype=np.int64)] + [part[2 + c] for part in parts])
+            for c, v in enumerate((1, 0, 0, p))]
+    order = np.concatenate([[0], order + 1])
+    return cols[0][order], cols[1][order], cols[2][order], cols[3][order]
+
+
+def _nearest_vec(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``_nearest`` elementwise (b ≠ 0)."""
+    neg = b < 0
+    a, b = np.where(neg, -a, a), np.where(neg, -b, b)
+    q, r = np.floor_divide(a, b), np.mod(a, b)
+    return q + ((2 * r > b) | ((2 * r == b) & (q % 2 == 1)))
 
 
 def hecke_matrices(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
