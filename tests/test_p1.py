@@ -118,3 +118,21 @@ def test_bad_level():
     for bad in (2.5, "11", None):
         with pytest.raises(ValueError, match=r"\bN\b"):
             P1(bad)
+
+
+@pytest.mark.parametrize("N", [1, 2, 12, 97, 360, 1024, 1025, 3000])
+def test_index_scalar_long_arrays(N):
+    """Long arrays (the N² table for N ≤ 1024, the normal form above): (c, d) ≡ λ·(c_j, d_j)
+    (mod N) with λ a unit, and −1 exactly where gcd(c, d, N) ≠ 1 (the definition)."""
+    rng = np.random.default_rng(N)
+    c = rng.integers(-(10**6), 10**6, size=4 * N + 50)
+    d = rng.integers(-(10**6), 10**6, size=4 * N + 50)
+    P = P1(N)
+    j, lam = P.index_scalar(c, d)
+    assert np.array_equal(j, P.index(c, d))
+    for cc, dd, jj, ll in zip(c.tolist(), d.tolist(), j.tolist(), lam.tolist(), strict=True):
+        if gcd(gcd(cc, dd), N) != 1:
+            assert jj == -1
+            continue
+        assert gcd(ll, N) == 1 or N == 1
+        assert (cc - ll * int(P.c[jj])) % N == 0 and (dd - ll * int(P.d[jj])) % N == 0

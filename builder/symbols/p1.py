@@ -25,6 +25,8 @@ import numpy as np
 
 from builder.arith import check_level, divisors
 
+TABLE_LEVELS = 1024  # up to this N, look-ups go through an N² table (8 MB at most)
+
 
 def _inverse_table(m: int) -> np.ndarray:
     """inv[x] = x^{-1} mod m for units x, 0 otherwise (m ≥ 1)."""
@@ -98,11 +100,29 @@ class P1:
     def index(self, c: np.ndarray, d: np.ndarray) -> np.ndarray:
         """Indices of the points (c : d) for integer arrays c, d (any sign).
 
-        Returns -1 where gcd(c, d, N) ≠ 1 (the pair is not in P¹(Z/NZ)).
+        Returns -1 where gcd(c, d, N) ≠ 1 (the pair is not in P¹(Z/NZ)).  For N ≤
+        ``TABLE_LEVELS`` and long arrays, one look-up in a table of all N² pairs.
         """
         N = self.N
         c = np.mod(np.asarray(c, dtype=np.int64), N)
         d = np.mod(np.asarray(d, dtype=np.int64), N)
+        if N <= TABLE_LEVELS and c.size > N:
+            return self._tables[0][c * N + d].astype(np.int64)
+        return self._index_reduced(c, d)
+
+    @property
+    def _tables(self) -> tuple[np.ndarray, np.ndarray]:
+        """(index, λ) for every pair (c, d) mod N, c·N + d (int32; built once, lazily)."""
+        if not hasattr(self, "_tabs"):
+            N = self.N
+            c, d = np.divmod(np.arange(N * N, dtype=np.int64), N)
+            j = self._index_reduced(c, d)
+            self._tabs = (j.astype(np.int32), self._scalar(j, c, d).astype(np.int32))
+        return self._tabs
+
+    def _index_reduced(self, c: np.ndarray, d: np.ndarray) -> np.ndarray:
+        """``index`` for c, d already reduced modulo N (the normal form, no table)."""
+        N = self.N
         g = np.gcd(c, N)
         g[g == 0] = N
         s = self._slot[g]
@@ -137,11 +157,21 @@ class P1:
         (c : d) is not in P¹(Z/NZ).  Needed for symbols with a character, where
         [P, (λc : λd)] = χ(λ)·[P, (c : d)].
         """
-        j = self.index(c, d)
+        N = self.N
+        c = np.mod(np.asarray(c, dtype=np.int64), N)
+        d = np.mod(np.asarray(d, dtype=np.int64), N)
+        if N <= TABLE_LEVELS and c.size > N:
+            flat = c * N + d
+            j, lam = self._tables
+            return j[flat].astype(np.int64), lam[flat].astype(np.int64)
+        j = self._index_reduced(c, d)
+        return j, self._scalar(j, c, d)
+
+    def _scalar(self, j: np.ndarray, c: np.ndarray, d: np.ndarray) -> np.ndarray:
         x, y = self._bezout
         jj = np.maximum(j, 0)
-        lam = np.mod(x[jj] * np.mod(c, self.N) + y[jj] * np.mod(d, self.N), self.N)
-        return j, np.where(j >= 0, lam, 0)
+        lam = np.mod(x[jj] * c + y[jj] * d, self.N)
+        return np.where(j >= 0, lam, 0)
 
     @property
     def _bezout(self) -> tuple[np.ndarray, np.ndarray]:
