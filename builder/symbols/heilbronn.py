@@ -18,7 +18,7 @@ n = 2310), so odd primes use Cremona's smaller set (``cremona_prime``).
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache, lru_cache
 
 import numpy as np
 
@@ -60,8 +60,22 @@ def merel(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     return A, B, C, D
 
 
-@lru_cache(maxsize=4096)
+CACHED_BELOW = 2048  # sets for p below this are kept (a few MB); larger ones are rebuilt
+
+
 def cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Cremona's set for the odd prime p (``_cremona_prime``), cached for p < 2048 only:
+    a CM proof can ask for every prime up to a Sturm bound of 10⁵, whose sets would not
+    fit in memory together, and the numpy construction is cheap to repeat."""
+    return _cremona_cached(p) if p < CACHED_BELOW else _cremona_prime(p)
+
+
+@cache
+def _cremona_cached(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    return _cremona_prime(p)
+
+
+def _cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Heilbronn matrices of determinant p for an odd prime p from continued fractions.
 
     [Cr] §2.4: [[1, 0], [0, p]] together with, for every r with |r| < p/2, the
