@@ -224,3 +224,16 @@ def test_cm_orbits_vanish_at_inert_primes():
     for p in primes_up_to(200):
         if p not in (2, 7) and pow(-7 % p, (p - 1) // 2, p) == p - 1:  # Euler
             assert f.traces[p - 1] == 0
+
+
+@pytest.mark.parametrize("N,k,j", [(7, 3, 1), (13, 2, 4), (25, 2, 3)])
+def test_ap_is_zero_agrees_with_the_exact_ap(N, k, j):
+    """The zero test of a_p (p ∤ N: Tr(χ̄(p)a_p²) = Σ|σ(a_p)|², an integer that vanishes iff
+    a_p does — common practice, from ā_p = χ̄(p)a_p) against the exact a_p ∈ K of
+    exact_aps, at every prime up to 60, zeros and non-zeros alike."""
+    U = CharUnit(N, k, character_orbits(N)[j])
+    ps = [p for p in primes_up_to(60)]
+    for o in U.orbits:
+        exact = U.exact_aps(o, ps)
+        for p in ps:
+            assert U.ap_is_zero(o, p) == (exact[p] == 0), (N, k, j, p)

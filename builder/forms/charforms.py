@@ -523,9 +523,28 @@ class CharUnit:
         return self._norm_of_relative(primes, image, orbit.dim // self.phi_m, rho)
 
     def ap_is_zero(self, orbit: CharOrbit, p: int) -> bool:
-        """a_p = 0 exactly: zero modulo primes whose product exceeds twice the bound on
-        the coefficients of a_p·F'(x) (see exact_aps)."""
+        """a_p = 0 exactly.  For p ∤ N: ā_p = χ̄(p)a_p in every complex embedding (T_p* =
+        χ̄(p)T_p, [DS] Prop. 5.5.2 / [Mi] Thm. 4.5.4), so T = Tr_{K/Q}(χ̄(p)a_p²) =
+        Σ_σ |σ(a_p)|² is an integer in [0, d·4p^(k−1)] (Deligne) that vanishes iff a_p = 0:
+        one or two primes ℓ decide it.  For p | N: zero modulo primes whose product exceeds
+        twice the bound on the coefficients of a_p·F'(x) (see exact_aps)."""
         d, k = orbit.dim, self.k
+        if self.N % p:
+            need = 2 * d * 4 * p ** (k - 1) + 1
+            res, mods, prod = [], [], 1
+            for ell in self.good_primes_for(orbit):
+                aps = self.aps_mod(orbit, [p], ell)
+                data = self._eigen(ell, orbit)
+                t = 0
+                for a, by_p in aps.items():
+                    fa = data[a][0]
+                    chi_inv = pow(int(self.conj(ell, a).M.values[p % self.N]), -1, ell)
+                    t += _trace_mod((by_p[p] * by_p[p]) % fa, fa, ell) * chi_inv
+                res.append(t % ell)
+                mods.append(ell)
+                prod *= ell
+                if prod > need:
+                    return _sym(_crt(res, mods), prod) == 0
         rho = self.root_bound(self.split[0])
         shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
         need = 2 * d * (isqrt(4 * p ** (k - 1)) + 1) * shape + 1
@@ -843,7 +862,13 @@ def _traces_rel(aps: dict, f: flint.nmod_poly, B: int, N: int, k: int, ell: int,
             for p, e in fa:
                 val = (val * a[p**e]) % f
             a[n] = val
-    # power sums of the roots of f modulo ℓ (Newton)
+    ps = _power_sums(f, ell)
+    return [_trace_mod(a[n], f, ell, ps) for n in range(1, B + 1)]
+
+
+def _power_sums(f: flint.nmod_poly, ell: int) -> list[int]:
+    """Σ α^m over the roots α of the monic f, m = 0..deg f − 1, modulo ℓ (Newton's
+    identities)."""
     d = f.degree()
     c = [int(x) for x in f.coeffs()]
     e = [(-1) ** i * c[d - i] % ell for i in range(d + 1)]
@@ -852,11 +877,13 @@ def _traces_rel(aps: dict, f: flint.nmod_poly, B: int, N: int, k: int, ell: int,
         s = sum((-1) ** (i - 1) * e[i] * ps[m - i] for i in range(1, m)) if m > 1 else 0
         s += (-1) ** (m - 1) * m * e[m]
         ps.append(s % ell)
-    out = []
-    for n in range(1, B + 1):
-        cs = [int(x) for x in a[n].coeffs()]
-        out.append(sum(ci * ps[j] for j, ci in enumerate(cs)) % ell)
-    return out
+    return ps
+
+
+def _trace_mod(y: flint.nmod_poly, f: flint.nmod_poly, ell: int, ps=None) -> int:
+    """Tr of y (reduced modulo f) in F_ℓ[x]/(f): Σ y_j·(power sum j)."""
+    ps = _power_sums(f, ell) if ps is None else ps
+    return sum(int(ci) * ps[j] for j, ci in enumerate(y.coeffs())) % ell
 
 
 __all__ = ["CharUnit", "CharOrbit", "compute_char"]
