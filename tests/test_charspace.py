@@ -15,9 +15,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from builder.characters import character_orbit, character_orbits, primes_one_mod
-from builder.symbols.charspace import char_space, poly_action_mod, poly_action_row_mod
+from builder.symbols.charspace import char_space, poly_action_mod
 from builder.symbols.manin import poly_action
-from builder.symbols.space import SymbolSpace
+from builder.symbols.space import SymbolSpace, poly_action_row
 
 ELL = 1000003
 
@@ -44,7 +44,7 @@ def test_one_row_of_the_polynomial_action(abcd, w, i):
     (common practice: the binomial expansion of (aX + bY)^i (cX + dY)^(w−i))."""
     i = min(i, w)
     a, b, c, d = (np.array([x], dtype=np.int64) for x in abcd)
-    row = poly_action_row_mod(a, b, c, d, i, w, ELL)[0]
+    row = poly_action_row(a, b, c, d, i, w, ELL)[0]
     assert row.tolist() == [x % ELL for x in poly_action(*abcd, w)[i]]
 
 

@@ -31,6 +31,7 @@ from builder.linalg_modp import matmul_mod
 from builder.symbols.heilbronn import hecke_matrices
 from builder.symbols.manin import poly_action
 from builder.symbols.p1 import P1, p1
+from builder.symbols.space import poly_action_row
 
 DENSE_COORDS_MAX = 8_000_000  # nsym·dim floats (64 MB) for the dense coordinate matrix
 
@@ -57,28 +58,6 @@ def poly_action_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, 
         for s in range(i + 1):
             for t in range(w - i + 1):
                 A[:, i, s + t] = np.mod(A[:, i, s + t] + P[i][:, s] * Q[w - i][:, t], ell)
-    return A
-
-
-def poly_action_row_mod(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, i: int,
-                        w: int, ell: int) -> np.ndarray:
-    """Row i of ``poly_action_mod``: A[h, m] = coefficient of X^m Y^(w−m) in
-    (a_h X + b_h Y)^i (c_h X + d_h Y)^(w−i) modulo ℓ < 2^21 (O(w²) per matrix, not O(w³))."""
-    a, b, c, d = (np.mod(x, ell) for x in (a, b, c, d))
-
-    def power(x: np.ndarray, y: np.ndarray, e: int) -> np.ndarray:
-        out = np.ones((len(x), 1), dtype=np.int64)
-        for _ in range(e):
-            nxt = np.zeros((len(x), out.shape[1] + 1), dtype=np.int64)
-            nxt[:, 1:] += out * x[:, None]
-            nxt[:, :-1] += out * y[:, None]
-            out = np.mod(nxt, ell)
-        return out
-
-    P, Q = power(a, b, i), power(c, d, w - i)
-    A = np.zeros((len(a), w + 1), dtype=np.int64)
-    for s_ in range(i + 1):
-        A[:, s_:s_ + w - i + 1] = np.mod(A[:, s_:s_ + w - i + 1] + P[:, s_:s_ + 1] * Q, ell)
     return A
 
 
@@ -285,21 +264,21 @@ class CharSpace:
     def images(self, xs: np.ndarray, n: int) -> np.ndarray:
         """Rows T_n(x) (free coordinates mod ℓ) for the Manin symbols xs: every pair
         (symbol, Heilbronn matrix) at once, in chunks that bound the memory."""
-        H = len(hecke_matrices(n)[0])
+        mats = hecke_matrices(n)
         out = np.zeros((len(xs), max(self.dim, 1)))
-        step = max(1, (1 << 21) // max(H, 1))
+        step = max(1, (1 << 21) // max(len(mats[0]), 1))
         for s0 in range(0, len(xs), step):
             chunk = xs[s0:s0 + step]
-            rows, syms, coefs = self._terms(chunk, n)
+            rows, syms, coefs = self._terms(chunk, mats)
             if len(rows):
                 out[s0:s0 + len(chunk)] = self._accumulate(rows, syms, coefs, len(chunk))
         return out[:, : self.dim]
 
-    def _terms(self, xs: np.ndarray, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """T_n(xs[r]) = Σ coef·[symbol] as (r, symbol, coef mod ℓ) triples (Merel [Me],
-        with χ(λ) for the P¹ lookups)."""
+    def _terms(self, xs: np.ndarray, mats) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """T_n(xs[r]) = Σ coef·[symbol] as (r, symbol, coef mod ℓ) triples, for the
+        Heilbronn set ``mats`` of T_n (Merel [Me], with χ(λ) for the P¹ lookups)."""
         ell, psi, w = self.ell, self.psi, self.w
-        a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
+        a, b, c, d = (np.asarray(t, dtype=np.int64) for t in mats)
         H = len(a)
         I, J = np.divmod(xs, psi)
         u, v = self.P1.c[J][:, None], self.P1.d[J][:, None]
@@ -310,7 +289,7 @@ class CharSpace:
             return gens[ok], t[ok], chi[ok]
         levels = np.unique(I)
         if len(levels) == 1:  # one monomial X^i Y^(w−i): only row i of the action
-            A = poly_action_row_mod(a, b, c, d, int(levels[0]), w, ell)[:, None, :]
+            A = poly_action_row(a, b, c, d, int(levels[0]), w, ell)[:, None, :]
             I = np.zeros_like(I)
         else:
             A = poly_action_mod(a, b, c, d, w, ell)
@@ -337,7 +316,7 @@ class CharSpace:
         W = np.zeros((len(ns), self.nsym))
         one = np.array([x], dtype=np.int64)
         for r, n in enumerate(ns):
-            _, syms, coefs = self._terms(one, n)
+            _, syms, coefs = self._terms(one, hecke_matrices(n))
             W[r] = _bincount_mod(syms, coefs, self.nsym, ell)
         return np.mod(matmul_mod(W, self._dense_coords, ell), ell)
 

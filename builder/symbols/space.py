@@ -742,13 +742,21 @@ class SymbolSpace:
 
 
 def poly_action_row(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, i: int,
-                    w: int) -> np.ndarray:
-    """Row i of builder.symbols.manin.poly_action for arrays of matrices, exactly:
+                    w: int, ell: int | None = None) -> np.ndarray:
+    """Row i of builder.symbols.manin.poly_action for arrays of matrices:
     A[h, m] = coefficient of X^m Y^(w−m) in (a_h X + b_h Y)^i (c_h X + d_h Y)^(w−i) —
-    int64 when (2·max|entry|)^w < 2^62, Python integers otherwise."""
-    top = int(max((np.max(np.abs(x), initial=0) for x in (a, b, c, d)), default=0))
-    dtype = np.int64 if (2 * top + 1) ** w < (1 << 62) else object
-    a, b, c, d = (np.asarray(x).astype(dtype) for x in (a, b, c, d))
+    exactly (int64 when (2·max|entry|)^w < 2^62, Python integers otherwise), or modulo
+    ℓ < 2^21 when ``ell`` is given (int64, reduced at every step)."""
+    if ell is None:
+        top = int(max((np.max(np.abs(x), initial=0) for x in (a, b, c, d)), default=0))
+        dtype = np.int64 if (2 * top + 1) ** w < (1 << 62) else object
+        a, b, c, d = (np.asarray(x).astype(dtype) for x in (a, b, c, d))
+    else:
+        dtype = np.int64
+        a, b, c, d = (np.mod(x, ell) for x in (a, b, c, d))
+
+    def reduce(x: np.ndarray) -> np.ndarray:
+        return x if ell is None else np.mod(x, ell)
 
     def power(x: np.ndarray, y: np.ndarray, e: int) -> np.ndarray:
         out = np.ones((len(x), 1), dtype=dtype)
@@ -756,14 +764,13 @@ def poly_action_row(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, 
             nxt = np.zeros((len(x), out.shape[1] + 1), dtype=dtype)
             nxt[:, 1:] += out * x[:, None]
             nxt[:, :-1] += out * y[:, None]
-            out = nxt
+            out = reduce(nxt)
         return out
 
     P, Q = power(a, b, i), power(c, d, w - i)
     A = np.zeros((len(a), w + 1), dtype=dtype)
     for s_ in range(i + 1):
-        for t_ in range(w - i + 1):
-            A[:, s_ + t_] += P[:, s_] * Q[:, t_]
+        A[:, s_:s_ + w - i + 1] = reduce(A[:, s_:s_ + w - i + 1] + P[:, s_:s_ + 1] * Q)
     return A
 
 
