@@ -251,6 +251,7 @@ def show(
     n_traces: int = typer.Option(20, "--traces", help="How many traces to print."),
 ) -> None:
     """Print one newform orbit: field, signs, traces, exact a_p."""
+    from builder.arith import factor
     from builder.storage.db import open_existing
     from builder.storage.reader import load_newform, similar_labels
 
@@ -289,7 +290,13 @@ def show(
         pairs = zip(nf["al_primes"], nf["al_signs"], strict=True)
         signs = ", ".join(f"W_{p}: {'+' if s > 0 else '-'}1" for p, s in pairs)
         if nf["fricke_sign"] is None:
-            out.print("  Atkin–Lehner, Fricke, root number: not recorded for a nontrivial χ")
+            out.print("  Atkin–Lehner signs, Fricke, root number: not defined for a nontrivial χ")
+            pseudo = zip(nf.get("al_pseudo_primes") or [], nf.get("al_pseudo_values") or [],
+                         strict=True)
+            for p, coords in pseudo:
+                Q = p ** dict(factor(nf["level"]))[p]
+                out.print(f"  W_{Q} pseudo-eigenvalue w = {Q}^(k/2−1)·λ (power basis): {coords}",
+                          markup=False)
         else:
             out.print(
                 f"  Atkin–Lehner {signs or '(none)'}; Fricke {nf['fricke_sign']:+d}; "

@@ -1,4 +1,4 @@
--- nfb database schema, version 3, postgresql dialect.
+-- nfb database schema, version 4, postgresql dialect.
 -- GENERATED from builder/storage/models.py by `python -m builder.storage.models`;
 -- do not edit by hand (tests/test_schema.py checks that it is in sync).
 -- Column meanings: schema/README.md.
@@ -85,6 +85,8 @@ CREATE TABLE newforms (
 	l_ratio TEXT,
 	hecke_poly_2 JSON,
 	has_ap BOOLEAN NOT NULL,
+	al_pseudo_primes JSON NOT NULL,
+	al_pseudo_values JSON,
 	PRIMARY KEY (label),
 	FOREIGN KEY(level, weight, char_index) REFERENCES spaces (level, weight, char_index) ON DELETE CASCADE,
 	CONSTRAINT uq_newforms_unit_orbit UNIQUE (level, weight, char_index, orbit)

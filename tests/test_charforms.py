@@ -17,6 +17,7 @@ Every oracle is independent of the engine (tests/char_oracles.py imports nothing
 
 from __future__ import annotations
 
+import math
 from functools import cache
 from math import gcd
 
@@ -128,7 +129,7 @@ def test_eta_quotients_with_character(form):
 # a spread of units: odd and even weights, orders 2..12, conductors < N, several orbits
 UNITS = [(7, 3, 1), (13, 2, 4), (16, 3, 4), (21, 2, 7), (25, 2, 4), (27, 2, 4), (45, 2, 4),
          (45, 2, 10), (11, 3, 3), (20, 3, 3), (28, 2, 6), (35, 2, 11), (9, 4, 2), (12, 3, 2),
-         (45, 2, 2)]
+         (45, 2, 2), (20, 3, 4), (36, 3, 2)]
 
 
 @cache
@@ -237,3 +238,90 @@ def test_ap_is_zero_agrees_with_the_exact_ap(N, k, j):
         exact = U.exact_aps(o, ps)
         for p in ps:
             assert U.ap_is_zero(o, p) == (exact[p] == 0), (N, k, j, p)
+
+
+def _unit_class(N: int, Q: int) -> int:
+    """n ≡ Q (mod N/Q), n ≡ 1 (mod Q): χ(n) = χ_{N/Q}(Q) when χ is trivial modulo Q."""
+    R = N // Q
+    return next(n for n in range(1, N * Q + 1) if n % R == Q % R and n % Q == 1 % Q)
+
+
+@pytest.mark.parametrize("N,k,j", UNITS)
+def test_atkin_lehner_pseudo_eigenvalues(N, k, j):
+    """[AL78] A. O. L. Atkin, W.-C. W. Li, Invent. Math. 48 (1978), §1–2 (statements from
+    memory): at Q = p^r ∥ N with p ∤ cond χ, f|_k W_Q = λ_Q·f with |λ_Q| = 1 and λ_Q² =
+    χ̄_{N/Q}(Q), and λ_p = −p^(1−k/2)·ā_p when r = 1.  The record stores w_Q =
+    Q^(k/2−1)·λ_Q ∈ K; checked here in every complex embedding (the trace of w_Q² through
+    the Ramanujan sum c_m, Apostol §8.3)."""
+    chi = character_orbits(N)[j]
+    R = _record(N, k, j)
+    want = [p for p, _ in factor(N) if chi.conductor % p]
+    for f in R.newforms:
+        assert sorted(f.al_pseudo) == want, f.label
+        roots = _embeddings(f.field_poly)
+        for p, coords in f.al_pseudo.items():
+            Q = p ** _pval(N, p)
+            ws = [_value(coords, r) for r in roots]
+            assert all(abs(abs(w) - Q ** ((k - 2) / 2)) < 1e-9 for w in ws), (f.label, p)
+            e = chi.exponent(_unit_class(N, Q))
+            tr = sum((w * w for w in ws), flint.acb(0))
+            target = Q ** (k - 2) * f.rel_dim * ramanujan_sum(chi.order, e)
+            assert abs(tr - target) < 1e-6, (f.label, p)
+            if Q == p:
+                for w, r in zip(ws, roots, strict=True):
+                    assert abs(w * _value(f.ap[p], r) + p ** (k - 2)) < 1e-9, (f.label, p)
+
+
+def test_the_units_above_reach_every_kind_of_pseudo_eigenvalue():
+    """The parametrised checks above meet p ∥ N and p² | N, even and odd weight."""
+    kinds = set()
+    for N, k, j in UNITS:
+        chi = character_orbits(N)[j]
+        for p, e in factor(N):
+            if chi.conductor % p and _record(N, k, j).newforms:
+                kinds.add((min(e, 2), k % 2))
+    assert kinds == {(1, 0), (1, 1), (2, 0), (2, 1)}
+
+
+@pytest.mark.parametrize("N,k", [(27, 2), (49, 2), (32, 2), (50, 2), (75, 2), (18, 4),
+                                 (32, 4)])
+def test_pseudo_eigenvalues_for_the_trivial_character_are_the_signs(N, k):
+    """With χ = 1 the same W_Q code gives w_Q = Q^(k/2−1)·ε_Q: the signs of the trivial-
+    character engine (builder.forms.unit, another code path: [AL] matrices on rational
+    symbols).  External anchors (from memory, Cremona's tables: the elliptic curves of
+    conductor 27, 32, 49 have rank 0, so root number +1 and ε_N = −1)."""
+    U = CharUnit(N, k, character_orbits(N)[0])
+    Qs = {p: p**e for p, e in factor(N)}
+    mine = []
+    for o in U.orbits:
+        w = U.exact_atkin_lehner(o, list(Qs.values()))
+        signs = {}
+        for p, Q in Qs.items():
+            scale = Q ** ((k - 2) // 2)
+            assert w[Q] in (scale, -scale), (N, k, Q)  # rational: ±Q^(k/2−1)
+            signs[p] = 1 if w[Q] == scale else -1
+        mine.append((o.dim, sorted(signs.items())))
+    ref = [(f.dim, sorted(f.atkin_lehner.items())) for f in compute_unit(N, k).newforms]
+    assert sorted(mine) == sorted(ref)
+    if (N, k) in ((27, 2), (32, 2), (49, 2)):
+        assert mine == [(1, [(dict(factor(N)).popitem()[0], -1)])]
+
+
+def test_units_beyond_the_absolute_method_fail_at_once():
+    """S_2(443, χ), χ of order 221: the absolute charpoly of T = T_2 + ⟨g⟩ has degree
+    φ(221)·dim_new = 192·36 ([CO] for dim_new) and roots bounded by 2√2 + 1 (Deligne), so
+    its integer lift needs 2(1 + ρ)^6912 < Π ℓ over the primes ℓ ≡ 1 (mod 221) below 2^21
+    (listed here with sympy), which fails: the unit is refused before any space is built."""
+    import sympy
+
+    chi = character_orbits(443)[6]
+    assert chi.order == 221 and dim_new_char((443, 221, chi.exps), 2) == 36
+    prod = 1
+    for ell in range(222, 1 << 21, 221):
+        if sympy.isprime(ell):
+            prod *= ell
+    assert 1 + 192 * 36 * math.log2(1 + 2 * math.sqrt(2) + 1) > math.log2(prod)
+    U = CharUnit(443, 2, chi)
+    with pytest.raises(ArithmeticError, match=r"absolute degree φ\(221\)·36 = 6912"):
+        _ = U.split
+    assert not U._states  # no conjugate space was built

@@ -318,12 +318,18 @@ def test_characters_dry_run_and_status(tmp_path, built):
 
 
 def test_show_a_newform_with_character(tmp_path_factory):
-    """`nfb show` of an orbit with a nontrivial character names the character and says
-    that the signs are not recorded (they are not ±1 for χ ≠ 1; schema/README.md)."""
+    """`nfb show` of an orbit with a nontrivial character names the character, says that
+    the signs are not defined (not ±1 for χ ≠ 1; schema/README.md) and prints the
+    Atkin–Lehner pseudo-eigenvalue where χ is trivial at p: 21w2c4-1 (cond χ = 7) has
+    w_3 = x with x² − x + 1 = 0 (w_3·a_3 = −1, a_3 = x − 1: Atkin–Li, λ_p = −ā_p)."""
     from tests.tables_helpers import char_table
 
     out = char_table(tmp_path_factory)
     r = run_nfb("show", "13w2c4-1", "--out", out)
     assert r.returncode == 0, r.stderr
     assert "character orbit 4: order 6, conductor 13, even" in r.stdout
-    assert "not recorded for a nontrivial χ" in r.stdout
+    assert "not defined for a nontrivial χ" in r.stdout and "pseudo" not in r.stdout
+    r = run_nfb("show", "21w2c4-1", "--out", out)
+    assert "field polynomial (constant first) [1, -1, 1]" in r.stdout
+    assert "W_3 pseudo-eigenvalue w = 3^(k/2−1)·λ (power basis): ['0', '1']" in r.stdout
+    assert "a_3 = ['-1', '1']" in r.stdout

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import sqlite3
+from fractions import Fraction
 
 import pytest
 
@@ -366,3 +367,32 @@ def test_character_orbit_fields_are_named(chars, tmp_path):
     assert any("orbits numbered [2], not 1..1; missing 7w3c1-1" in d for d in details)
     assert any("'7w3c1-1' is not 7w3c1-2" in d for d in details)
     assert "L-value" not in bad  # not applicable to a character, whatever is stored
+
+
+def test_wrong_pseudo_eigenvalues_are_named(chars, tmp_path):
+    """χ ≠ 1, p ∤ cond χ ([AL78] Atkin–Li §1–2), on 21w2c4-1 (cond χ = 7, w_3 stored),
+    one corruption at a time: w_3 negated (w·a_3 = −1 fails; |w| and w² do not see it);
+    w_3 doubled (w²/3⁰ is no root of unity); the pseudo-eigenvalues dropped (they must be
+    stored with exact a_p)."""
+    with open_source(chars) as src:
+        row = src.newforms().set_index("label").loc["21w2c4-1"]
+    assert list(row["al_pseudo_primes"]) == [3]
+    w = row["al_pseudo_values"]
+
+    def scaled(s: int) -> str:
+        return "al_pseudo_values = '" + json.dumps(
+            [[str(s * Fraction(c)) for c in v] for v in w]) + "'"
+
+    cases = {
+        "w_3·a_3 ≠ -1": scaled(-1),
+        "w_3²/3^0 is not a root of unity": scaled(2),
+        "al_pseudo_primes [] (values null)": "al_pseudo_primes = '[]', al_pseudo_values = NULL",
+    }
+    for i, (message, change) in enumerate(cases.items()):
+        t = copy_table(chars, tmp_path / f"t{i}")
+        _corrupt(t, f"UPDATE newforms SET {change} WHERE label = '21w2c4-1'")
+        with open_source(t) as src:
+            rep = verify(src)
+        assert _failing(rep) == {"Atkin–Lehner": {"21w2c4-1"}}, message
+        details = [d for _, _, d in rep.failures]
+        assert any(message in d for d in details), (message, details)

@@ -27,8 +27,18 @@ Everything is computed modulo primes ℓ ≡ 1 (mod m), < 2^21, for every conjug
    bound d·σ0(n)·n^((k−1)/2); a_p ∈ K = Q[x]/(F) (x = a_q generates K since F is
    irreducible of degree d) from the CRT of its images in the F_ℓ[x]/(f_a), through
    b = a_p·F'(x) with the bound of builder.forms.eigen (valid for complex roots too).
-Atkin–Lehner signs, the root number and L-values are not recorded for a nontrivial χ
-(W_Q does not act on S_k(N, χ) by ±1 in general): those fields are None.
+5. **Atkin–Lehner pseudo-eigenvalues.**  At p | N with χ trivial modulo p (p^e = Q ∥ N)
+   the integral W_Q of Atkin–Li's normalisation maps S_k(N, χ) to itself and commutes
+   with the T_q, q ∤ N, and every newform f has f|W_Q = λ_Q·f, |λ_Q| = 1, λ_Q² =
+   χ̄_{N/Q}(Q) ([AL78] §1).  Its eigenvalue on the +1 symbols,
+   w_Q = Q^(k/2−1)·λ_Q ∈ K, is read off the eigen-functionals like a_p and made exact the
+   same way (|σ(w_Q)| = Q^(k/2−1)); stored for orbits with exact a_p.  For p ∥ N it is
+   −p^(k−2)/a_p ([AL78] §2; the tests check it).
+Atkin–Lehner *signs*, the Fricke sign, the root number and L-values are not recorded for a
+nontrivial χ (W_N maps S_k(N, χ) to S_k(N, χ̄)): those fields are None.
+
+[AL78] A. O. L. Atkin, W.-C. W. Li, Twists of newforms and pseudo-eigenvalues of
+W-operators, Invent. Math. 48 (1978).
 """
 
 from __future__ import annotations
@@ -300,6 +310,21 @@ class CharUnit:
                for j in range(d + 1)]
         return _norm_poly(rel, m, conj, rho, d)
 
+    def check_liftable(self) -> None:
+        """Raise ArithmeticError at once (not after hours of conjugate spaces) when no
+        absolute charpoly can be lifted: its CRT needs 2(1 + ρ)^(φ(m)·dim_new) below the
+        product of all primes ℓ ≡ 1 (mod m), ℓ < 2^21, and the first combination has the
+        smallest ρ.  Such units need the splitting over Q(χ) (not implemented)."""
+        deg = self.phi_m * self.dim_new
+        need = 2 * (1 + self.root_bound(next(self._combos()))) ** deg + 1
+        have = _moduli_product(self.chi.order, need)
+        if need >= have:
+            raise ArithmeticError(
+                f"level {self.N} weight {self.k} character {self.chi.index}: absolute degree "
+                f"φ({self.chi.order})·{self.dim_new} = {deg} is beyond the absolute method "
+                f"(its charpoly needs {need.bit_length()} bits of primes ≡ 1 mod "
+                f"{self.chi.order} below 2^21, there are {have.bit_length()}); not computed")
+
     @cached_property
     def split(self) -> tuple[tuple, list[CharOrbit]]:
         """(T, orbits): the first T whose absolute charpoly is squarefree; its irreducible
@@ -307,6 +332,7 @@ class CharUnit:
         would be needed for two orbits with the same minimal polynomial of a_T)."""
         if self.dim_new == 0:
             return None, []
+        self.check_liftable()
         for combo in self._combos():
             P = self.charpoly(combo)
             _, facs = P.factor()
@@ -471,23 +497,57 @@ class CharUnit:
         return out
 
     def exact_aps(self, orbit: CharOrbit, ps: list[int]) -> dict[int, flint.fmpq_poly]:
-        """Exact a_p ∈ K = Q[x]/(F), x = a_q (F irreducible of degree d)."""
+        """Exact a_p ∈ K = Q[x]/(F), x = a_T (F irreducible of degree d); |σ(a_p)| ≤
+        2p^((k−1)/2) (Deligne)."""
+        return self._exact(orbit, ps, lambda ell: self.aps_mod(orbit, ps, ell),
+                           lambda p: isqrt(4 * p ** (self.k - 1)) + 1)
+
+    def atkin_lehner_mod(self, orbit: CharOrbit, Qs: list[int], ell: int) -> dict | None:
+        """{a: {Q: w_Q in F_ℓ[x]/(f_a)}}: the eigenvalue of the integral W_Q (Q ∥ N, χ
+        trivial modulo Q; ``CharSpace.atkin_lehner_of_symbol``) read off by the orbit's
+        functionals — W_Q commutes with every T_q, q ∤ N, on M_k(N, χ) ([AL78] §1),
+        so it acts on the orbit's cyclic F_ℓ[T]-module of functionals as an element of
+        F_ℓ[T]/(f_a)."""
+        data = self._eigen(ell, orbit)
+        if data is None:
+            return None
+        out = {}
+        for a, (fa, phi, v, inv) in data.items():
+            M = self.conj(ell, a).M
+            rows = np.stack([M.atkin_lehner_of_symbol(M.free[v], Q) for Q in Qs])
+            vals = matmul_mod(rows, phi, ell)
+            out[a] = {Q: (flint.nmod_poly([int(y) for y in vals[r]], ell) * inv) % fa
+                      for r, Q in enumerate(Qs)}
+        return out
+
+    def exact_atkin_lehner(self, orbit: CharOrbit, Qs: list[int]) -> dict[int, flint.fmpq_poly]:
+        """Exact w_Q ∈ K for each Q ∥ N with χ trivial modulo Q: f|W_Q = λ_Q·f with
+        w_Q = Q^(k/2−1)·λ_Q, |λ_Q| = 1 ([AL78] §1: the pseudo-eigenvalue)."""
+        return self._exact(orbit, Qs, lambda ell: self.atkin_lehner_mod(orbit, Qs, ell),
+                           lambda Q: isqrt(Q ** (self.k - 2)) + 1)
+
+    def _exact(self, orbit: CharOrbit, keys: list[int], residues, bound) -> dict:
+        """Elements of K = Q[x]/(F) from their residues modulo (ℓ, f_a) for every conjugate
+        a (``residues(ℓ)`` → {a: {key: value}}), |σ(value)| ≤ ``bound(key)`` for every
+        embedding σ: CRT in F_ℓ[x] gives value·F'(x) mod (ℓ, F), whose power-basis
+        coordinates are bounded by d·bound·max_j C(d−1, j)ρ^(d−1−j) (the trace-dual basis
+        of the roots, ρ = root_bound); CRT over ℓ until twice that is passed."""
         F = orbit.poly
-        d, k = F.degree(), self.k
+        d = F.degree()
         Fp = F.derivative()
         rho = self.root_bound(self.split[0])
         shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
-        need = 2 * max(d * (isqrt(4 * p ** (k - 1)) + 1) * shape for p in ps) + 1
+        need = 2 * max(d * bound(key) * shape for key in keys) + 1
         res, mods, prod = [], [], 1
         for ell in self.good_primes_for(orbit):
-            aps = self.aps_mod(orbit, ps, ell)
+            vals = residues(ell)
             data = self._eigen(ell, orbit)
             Fl, Fpl = _nmod(F.coeffs(), ell), _nmod(Fp.coeffs(), ell)
             per = {}
-            for p in ps:
-                # CRT in F_ℓ[x]: a_p ≡ aps[a][p] mod f_a for every conjugate a
-                val = _crt_poly([(aps[a][p], data[a][0]) for a in aps], ell)
-                per[p] = _coeffs((val * Fpl) % Fl, d)
+            for key in keys:
+                # CRT in F_ℓ[x]: value ≡ vals[a][key] mod f_a for every conjugate a
+                val = _crt_poly([(vals[a][key], data[a][0]) for a in vals], ell)
+                per[key] = _coeffs((val * Fpl) % Fl, d)
             res.append(per)
             mods.append(ell)
             prod *= ell
@@ -496,15 +556,10 @@ class CharUnit:
         K = NumberField(F)
         inv = K.inv(K.elt([int(c) for c in Fp.coeffs()]))
         out = {}
-        for p in ps:
-            b = []
-            for j in range(d):
-                x = _crt([r[p][j] for r in res], mods)
-                b.append(x - prod if x > prod // 2 else x)
-            out[p] = K.mul(K.elt(b), inv)
+        for key in keys:
+            b = [_sym(_crt([r[key][j] for r in res], mods), prod) for j in range(d)]
+            out[key] = K.mul(K.elt(b), inv)
         return out
-
-
 
     def orbit_charpoly(self, orbit: CharOrbit, q: int) -> flint.fmpz_poly:
         """Absolute charpoly of T_q on the orbit: the norm of its relative charpoly (degree
@@ -591,9 +646,9 @@ def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) 
     d = o.dim
     exact = d <= params.dim_cap
     if exact:
-        poly, ap = _exact_field_data(U, o, params.ap_bound)
+        poly, ap, al = _exact_field_data(U, o, params.ap_bound)
     else:
-        poly, ap = o.poly, None
+        poly, ap, al = o.poly, None, None
     q0 = U.good_hecke_primes()[0]
     cm = _cm_discriminant(U, o)
     ptraces = [traces[p - 1] for p in primes_up_to(params.trace_bound)]
@@ -611,14 +666,17 @@ def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) 
         "lvalue_zero": None,
         "l_ratio": None,
         "ap": ap,
+        "al_pseudo": al,
         "hecke_poly_2": [int(c) for c in U.orbit_charpoly(o, q0).coeffs()],
         "_key": (d, ptraces, traces),
     }
 
 
 def _exact_field_data(U: CharUnit, o: CharOrbit, ap_bound: int):
-    """Canonical polynomial (T2-reduced: K has complex embeddings) and exact a_p in the
-    power basis of its root; the a_n generate an order of rank d (doubling the bound)."""
+    """Canonical polynomial (T2-reduced: K has complex embeddings), exact a_p and the
+    Atkin–Lehner pseudo-eigenvalues w_{p^e} (p | N, χ trivial modulo p; ``al_primes``)
+    in the power basis of its root; the a_n generate an order of rank d (doubling the
+    bound)."""
     K = NumberField(o.poly)
     bound = FIELD_BOUND
     cache: dict = {}
@@ -645,11 +703,20 @@ def _exact_field_data(U: CharUnit, o: CharOrbit, ap_bound: int):
     missing = [p for p in primes_up_to(ap_bound) if p not in cache]
     if missing:
         cache.update(U.exact_aps(o, missing))
-    out = {}
-    for p in primes_up_to(ap_bound):
-        row = flint.fmpq_mat(1, K.d, K.coords(cache[p])) * P
-        out[p] = [str(row[0, j]) for j in range(K.d)]
-    return poly, out
+    def coords(x) -> list[str]:
+        row = flint.fmpq_mat(1, K.d, K.coords(x)) * P
+        return [str(row[0, j]) for j in range(K.d)]
+
+    Qs = {p: p ** e for p, e in factor(U.N) if p in al_primes(U.N, U.chi)}
+    w = U.exact_atkin_lehner(o, list(Qs.values())) if Qs else {}
+    return (poly, {p: coords(cache[p]) for p in primes_up_to(ap_bound)},
+            {p: coords(w[Q]) for p, Q in Qs.items()})
+
+
+def al_primes(N: int, chi: CharacterOrbit) -> list[int]:
+    """The primes p | N at which χ is trivial (p ∤ cond χ): there W_{p^e} (p^e ∥ N) maps
+    S_k(N, χ) to itself and every newform is an eigenvector ([AL78] §1)."""
+    return [p for p in prime_divisors(N) if chi.conductor % p]
 
 
 def _chi_in_K(U: CharUnit, K: NumberField, o: CharOrbit):
@@ -753,6 +820,21 @@ def _cm_discriminant(U: CharUnit, o: CharOrbit) -> int | None:
         if ok:
             return D
     return None
+
+
+_MODULI: dict[int, list] = {}  # m ↦ [primes ℓ ≡ 1 (mod m) still to come, their product so far]
+
+
+def _moduli_product(m: int, need: int) -> int:
+    """The product of the first primes ℓ ≡ 1 (mod m), ℓ < 2^21, of ``primes_one_mod``,
+    taken until it exceeds ``need`` or they run out (extended lazily, kept per m)."""
+    st = _MODULI.setdefault(m, [primes_one_mod(m), 1])
+    while st[1] <= need and st[0] is not None:
+        try:
+            st[1] *= next(st[0])
+        except RuntimeError:  # exhausted
+            st[0] = None
+    return st[1]
 
 
 def _sym(x: int, prod: int) -> int:

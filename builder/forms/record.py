@@ -61,6 +61,9 @@ class NewformRecord:
     # of a root of field_poly (length dim, rationals as strings); None if dim > dim_cap
     hecke_poly_2: list[int] | None = None  # charpoly of a_p for the first p ∤ N (const first)
     rel_dim: int | None = None  # degree over Q(χ) = dim / char_degree (None: = dim)
+    # χ ≠ 1: p ↦ coordinates (like ap) of the Atkin–Lehner pseudo-eigenvalue
+    # w_{p^e} = p^(e(k/2−1))·λ_{p^e} ∈ K for p | N with χ trivial mod p; None without exact a_p
+    al_pseudo: dict[int, list[str]] | None = None
 
 
 @dataclass
@@ -105,9 +108,9 @@ class SpaceRecord:
 
 
 def _int_keys(f: dict) -> dict:
-    """JSON turns int dict keys into strings; undo that for the two maps."""
+    """JSON turns int dict keys into strings; undo that for the maps."""
     f = dict(f)
-    for key in ("atkin_lehner", "ap"):
+    for key in ("atkin_lehner", "ap", "al_pseudo"):
         if f.get(key) is not None:
             f[key] = {int(p): v for p, v in f[key].items()}
     return f

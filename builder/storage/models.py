@@ -41,7 +41,7 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 STATUS_DONE = "done"
 STATUS_FAILED = "failed"
@@ -140,6 +140,10 @@ class Newform(Base):
     l_ratio: Mapped[str | None] = mapped_column(Text, nullable=True)
     hecke_poly_2: Mapped[list | None] = mapped_column(JSON, nullable=True)
     has_ap: Mapped[bool] = mapped_column(Boolean)  # exact a_p stored in eigenvalues
+    # χ ≠ 1 with exact a_p: the primes p | N with χ trivial mod p, and the Atkin–Lehner
+    # pseudo-eigenvalue w_{p^e} = p^(e(k/2−1))·λ_{p^e} of each (dim rationals, like coords)
+    al_pseudo_primes: Mapped[list] = mapped_column(JSON)
+    al_pseudo_values: Mapped[list | None] = mapped_column(JSON, nullable=True)
 
     __table_args__ = (
         ForeignKeyConstraint(

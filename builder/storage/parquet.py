@@ -102,6 +102,8 @@ SCHEMAS: dict[str, pa.Schema] = {
             ("hecke_poly_2", LIST_I64),
             ("hecke_poly_2_text", pa.string()),
             ("has_ap", pa.bool_()),
+            ("al_pseudo_primes", LIST_I64),
+            ("al_pseudo_values", pa.list_(pa.list_(pa.string()))),
         ]
     ),
     "eigenvalues": pa.schema(

@@ -92,6 +92,9 @@ def newform_row(rec: SpaceRecord, f: NewformRecord) -> dict:
         "l_ratio": f.l_ratio,
         "hecke_poly_2": None if f.hecke_poly_2 is None else [int(c) for c in f.hecke_poly_2],
         "has_ap": f.ap is not None,
+        "al_pseudo_primes": sorted(int(p) for p in f.al_pseudo or {}),
+        "al_pseudo_values": None if f.al_pseudo is None else [
+            [str(c) for c in f.al_pseudo[p]] for p in sorted(f.al_pseudo)],
     }
 
 
@@ -135,6 +138,9 @@ def rows_to_record(space: dict, newforms: list[dict], eigen: list[dict]) -> Spac
                 ap=(by_label.get(n["label"], {}) if n["has_ap"] else None),
                 hecke_poly_2=None if n["hecke_poly_2"] is None else list(n["hecke_poly_2"]),
                 rel_dim=n["rel_dim"],
+                al_pseudo=None if n["al_pseudo_values"] is None else {
+                    int(p): list(v) for p, v in zip(n["al_pseudo_primes"],
+                                                    n["al_pseudo_values"], strict=True)},
             )
         )
     return SpaceRecord(

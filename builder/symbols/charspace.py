@@ -413,19 +413,19 @@ class CharSpace:
             mult = np.where(better, self.values[inv[arg] % N] * s % ell, mult)
         return np.where(zero, -1, best), mult
 
-    # -- degeneracy maps -------------------------------------------------------------------------
+    # -- degeneracy maps and Atkin–Lehner operators -----------------------------------------------
     def degeneracy(self, target: CharSpace, t: int) -> np.ndarray:
         """The degeneracy map to level M = target.N induced by z ↦ t z (t·M | N), modulo ℓ:
         x = P{α, β} ↦ (P|[[1, 0], [0, t]]){tα, tβ} ([St] §8.6; the conjugate of Γ0(N) by
         diag(t, 1) keeps the lower right entries, so χ restricted to M is respected).  The
-        Manin symbols of each image do not depend on χ or ℓ (``_degeneracy_terms``, cached
+        Manin symbols of each image do not depend on χ or ℓ (``_image_terms``, cached
         across the conjugates and primes of a unit); χ(λ) is applied here."""
         if self.N % (t * target.N):
             raise ValueError(f"degeneracy map needs t·M | N, got t={t}, M={target.N}")
         ell = self.ell
         rows, syms, coefs = [], [], []
         for r, x in enumerate(self.free):
-            sym, coef, lam = _degeneracy_terms(self.N, self.k, target.N, t, int(x))
+            sym, coef, lam = _image_terms(self.N, self.k, target.N, (t, 0, 0, 1), int(x))
             rows.append(np.full(len(sym), r, dtype=np.int64))
             syms.append(sym)
             coefs.append(np.mod(coef, ell).astype(np.int64) * target.values[lam] % ell)
@@ -434,26 +434,50 @@ class CharSpace:
         return target._accumulate(np.concatenate(rows), np.concatenate(syms),
                                   np.concatenate(coefs), self.dim)
 
+    def atkin_lehner_of_symbol(self, x: int, Q: int) -> np.ndarray:
+        """W_Q(x) (free coordinates mod ℓ) for one Manin symbol x, Q ∥ N with χ trivial
+        on (Z/QZ)^×: the integral operator P{α, β} ↦ (P|adj W){Wα, Wβ} for the matrix
+        W of ``atkin_li_matrix`` (so W_Q² = χ̄_{N/Q}(Q)·Q^(k−2) on newforms, [AL78])."""
+        sym, coef, lam = _image_terms(self.N, self.k, self.N, atkin_li_matrix(self.N, Q),
+                                      int(x))
+        coefs = np.mod(coef, self.ell).astype(np.int64) * self.values[lam] % self.ell
+        return self._accumulate(np.zeros(len(sym), dtype=np.int64), sym, coefs, 1)[0]
+
+
+def atkin_li_matrix(N: int, Q: int) -> tuple[int, int, int, int]:
+    """W = [[Q, 1], [N z, Q w]] of determinant Q (Q ∥ N): upper left Q·x with x ≡ 1 (mod
+    N/Q) and y = 1 — Atkin–Li's normalisation ([AL78] §1), which fixes the operator on
+    S_k(N, χ) when χ is trivial modulo Q (another x multiplies it by χ_{N/Q}(x)⁻¹)."""
+    R = N // Q
+    if N % Q or gcd(Q, R) != 1:
+        raise ValueError(f"Q must be an exact divisor of N = {N} (Q ∥ N), got {Q}")
+    z = -pow(R, -1, Q) if Q > 1 else 0
+    w = (1 + R * z) // Q
+    return (Q, 1, N * z, Q * w)
+
 
 @lru_cache(maxsize=1 << 16)
-def _degeneracy_terms(N: int, k: int, M: int, t: int,
-                      x: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The image of the Manin symbol x of level N under the degeneracy map to level M by t,
-    as level-M terms (symbol index, integer coefficient, λ) with value coefficient·χ(λ):
-    x = P{g0, g∞} ↦ (P|[[1, 0], [0, t]]){tα, tβ}, each path from 0 cut along the
-    convergents of its continued fraction ([Ma], [Cr] §2.1)."""
+def _image_terms(N: int, k: int, M: int, W: tuple[int, int, int, int],
+                 x: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The image of the Manin symbol x of level N under x = P{g0, g∞} ↦
+    (P|adj W){Wg0, Wg∞} (W integral, det W > 0), as level-M terms (symbol index, integer
+    coefficient, λ) with value coefficient·χ(λ), each path from 0 cut along the
+    convergents of its continued fraction ([Ma], [Cr] §2.1).  W = diag(t, 1) is the
+    degeneracy map by t; W of ``atkin_li_matrix`` with M = N is W_Q."""
     from builder.symbols.space import _act, _complete, _reduce
 
     w = k - 2
+    A, B, C, D = W
     P = p1(N)
     i, j = divmod(x, len(P))
     c, d = int(P.c[j]), int(P.d[j])
     a, b = _complete(c, d)
     poly = [0] * (w + 1)
     poly[i] = 1
-    p2 = _act(_act(poly, (d, -b, -c, a), w), (1, 0, 0, t), w)
+    p2 = _act(_act(poly, (d, -b, -c, a), w), (D, -B, -C, A), w)
     out: list[tuple[int, int, int]] = []
-    _from_zero(p1(M), w, p2, _reduce((t * b, d)), _reduce((t * a, c)), out)
+    _from_zero(p1(M), w, p2, _reduce((A * b + B * d, C * b + D * d)),
+               _reduce((A * a + B * c, C * a + D * c)), out)
     sym = np.array([o[0] for o in out], dtype=np.int64)
     lam = np.array([o[2] for o in out], dtype=np.int64)
     return sym, np.array([o[1] for o in out], dtype=object), lam

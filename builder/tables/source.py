@@ -16,7 +16,8 @@ source. Only units with status 'done' are read, like the export.
 Character columns (schema v3): ``spaces`` has char_order, char_conductor, char_parity,
 char_number, char_degree after char_index; ``newforms`` has char_order (after char_index)
 and rel_dim (after dim); fricke_sign / root_number are null (None / NaN in the frame)
-for a nontrivial character.
+for a nontrivial character.  Schema v4 adds al_pseudo_primes / al_pseudo_values (the
+Atkin–Lehner pseudo-eigenvalues of character orbits with exact a_p) at the end.
 """
 
 from __future__ import annotations
@@ -60,7 +61,8 @@ SPACE_COLUMNS = [
     "dim_cap",
 ]
 NEWFORM_COLUMNS = [c.name for c in Newform.__table__.columns]
-LIST_COLUMNS = ("traces", "field_poly", "hecke_poly_2", "al_primes", "al_signs")
+LIST_COLUMNS = ("traces", "field_poly", "hecke_poly_2", "al_primes", "al_signs",
+                "al_pseudo_primes", "al_pseudo_values")
 OVERFLOW_TWINS = ("traces", "field_poly", "hecke_poly_2")
 
 

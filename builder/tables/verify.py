@@ -59,16 +59,22 @@ Atkin–Lehner          χ = 1: a_p = −p^(k/2−1)ε_p for p ∥ N and a_p = 0
                       p^(k−1) (exact: a_p·ι(a_p) = p^(k−1)); r = 1, s = 0 ⇒ a_p² =
                       χ'(p)p^(k−2), χ' = χ mod N/p (exact: (a_p²)^m = p^(m(k−2)) and
                       Tr(a_p²) = p^(k−2)·rel_dim·c_m(e'(p)); traces: the same for Tr a_{p²}
-                      = Tr a_p²); r ≥ 2, s < r ⇒ a_p = 0 (Tr a_p = 0 and exact a_p = 0)
+                      = Tr a_p²); r ≥ 2, s < r ⇒ a_p = 0 (Tr a_p = 0 and exact a_p = 0).
+                      χ ≠ 1, s = 0 (orbits with exact a_p): the pseudo-eigenvalue w of
+                      W_{p^r} is stored, w²/p^(r(k−2)) = χ̄'(p^r) (a root of unity of
+                      order | m with the Ramanujan-sum trace), w·w̄ = p^(r(k−2)), and
+                      w·a_p = −p^(k−2) for r = 1 ([AL78] §1–2)
 L-value               root_number = −1 ⇒ L(f, k/2) = 0 (lvalue_zero); l_ratio = 0 ⇔
                       lvalue_zero for rational weight-2 orbits (χ = 1 only)
 CM                    a CM orbit of discriminant D has Tr a_p = 0 for p ∤ N with (D/p) = −1
 
 Sources: [DS] Diamond–Shurman, A First Course in Modular Forms (GTM 228); [Mt] G. Martin,
 J. Number Theory 112 (2005); [CO] Cohen–Oesterlé, LNM 627 (1977); [CS] Cohen–Strömberg,
-Modular Forms: A Classical Approach (GSM 179); [Li] W. Li, Newforms and functional
-equations, Math. Ann. 212 (1975); [Mi] T. Miyake, Modular Forms; [De] P. Deligne, La
-conjecture de Weil I; [Ap] T. Apostol, Introduction to Analytic Number Theory.
+Modular Forms: A Classical Approach (GSM 179); [AL78] A. O. L. Atkin, W.-C. W. Li, Twists
+of newforms and pseudo-eigenvalues of W-operators, Invent. Math. 48 (1978); [Li] W. Li,
+Newforms and functional equations, Math. Ann. 212 (1975); [Mi] T. Miyake, Modular Forms;
+[De] P. Deligne, La conjecture de Weil I; [Ap] T. Apostol, Introduction to Analytic Number
+Theory.
 
 Exit status of `nfb verify`: 0 every check passed; 1 some record failed a check
 (each is listed by label); 2 bad input (no table there). ``--strict`` also turns
@@ -105,7 +111,7 @@ CHECKS = [
     ("multiplicativity", "Tr(a_m·a_n) = Tr a_mn, (m, n) = 1"),
     ("Hecke recursion", "a_{p^r} from a_p = stored Tr a_{p^r}; a_p² − a_{p²} = χ(p)p^(k−1)"),
     ("Atkin–Lehner", "a_p = −p^(k/2−1)ε_p (p ∥ N), a_p = 0 (p² | N), Fricke, root number; "
-                     "χ ≠ 1: Li's a_p at p | N"),
+                     "χ ≠ 1: Li's a_p at p | N, AL pseudo-eigenvalues"),
     ("L-value", "root number −1 ⇒ L(f, k/2) = 0"),
     ("CM", "a_p = 0 at inert primes"),
 ]
@@ -535,6 +541,10 @@ def _check_orbit_sum(res_sum: CheckResult, res_rec: CheckResult, sp, N, k, j, ch
         if j == 0:
             if [int(p) for p in r.al_primes] != primes_N:
                 problems.append(f"al_primes {list(r.al_primes)} ≠ primes of N {primes_N}")
+            pseudo = getattr(r, "al_pseudo_values", None)
+            if list(getattr(r, "al_pseudo_primes", None) or []) or not _null(pseudo):
+                problems.append("al_pseudo_primes / al_pseudo_values must be empty / null "
+                                "for the trivial character (its signs are al_signs)")
         else:  # W_Q does not act by ±1 on S_k(N, χ): nothing of the kind is stored
             if list(r.al_primes) or list(r.al_signs) or (r.al_pattern or ""):
                 problems.append(
@@ -761,6 +771,7 @@ def _check_hecke_char(res: CheckResult, o: _Orbit) -> None:
 def _check_atkin_lehner(res: CheckResult, o: _Orbit) -> None:
     if not o.trivial:
         _check_bad_primes_char(res, o)
+        _check_pseudo(res, o)
         return
     res.checked.add(o.label)
     r = o.row
@@ -841,6 +852,54 @@ def _check_bad_primes_char(res: CheckResult, o: _Orbit) -> None:
             if ap is not None and not ap.is_zero():
                 problems.append(f"a_{p} = {o.eigen.get(p)}, expected 0 "
                                 f"({p}² | N, {p}-part of cond χ smaller)")
+    for pr in problems:
+        res.failures.append((o.label, pr))
+
+
+def _check_pseudo(res: CheckResult, o: _Orbit) -> None:
+    """χ ≠ 1: al_pseudo_primes = the p | N with p ∤ cond χ (orbits with exact a_p), and
+    w = w_Q (Q = p^r ∥ N) = Q^(k/2−1)·λ_Q with |λ_Q| = 1, λ_Q² = χ̄'(Q) (χ' = χ mod N/Q)
+    ([AL78] §1): (w²)^m = Q^(m(k−2)), Tr(w²) = Q^(k−2)·rel_dim·c_m(e'(Q)), w·ι(w) = Q^(k−2);
+    for r = 1 also w·a_p = −p^(k−2) ([AL78] §2: λ_p = −p^(1−k/2)·ā_p)."""
+    if not o.nontrivial:
+        return
+    r_ = o.row
+    primes = [int(p) for p in getattr(r_, "al_pseudo_primes", None) or []]
+    values = getattr(r_, "al_pseudo_values", None)
+    values = None if values is None or _null(values) else list(values)
+    has_ap = bool(r_.has_ap)
+    want = [p for p, _ in F.factorize(o.N) if o.chi.conductor % p] if has_ap else []
+    if primes != want or (values is None) == has_ap:
+        res.failures.append((o.label, f"al_pseudo_primes {primes} (values "
+                             f"{'null' if values is None else 'stored'}), expected {want} "
+                             f"with values {'stored' if has_ap else 'null'}"))
+        return
+    if not primes:
+        return
+    res.checked.add(o.label)
+    if len(values) != len(primes) or any(len(v) != o.dim for v in values):
+        res.failures.append((o.label, "al_pseudo_values not aligned with al_pseudo_primes "
+                             f"or not {o.dim} coordinates each"))
+        return
+    K, m = o.K, o.chi.order
+    problems = []
+    for p, coords in zip(primes, values, strict=True):
+        r = _vp(o.N, p)
+        Q, scale = p ** r, p ** (r * (o.k - 2))
+        w = K.element(coords)
+        w2 = K.mul(w, w)
+        e = r * _prim_exponent(o.chi, p) % m
+        if K.power(w2, m) != K.from_int(scale ** m):
+            problems.append(f"w_{Q}²/{Q}^{o.k - 2} is not a root of unity of order | {m}")
+        elif K.trace(w2) != scale * o.rel_dim * _ramanujan(m, e):
+            problems.append(f"Tr(w_{Q}²) = {K.trace(w2)}, expected Tr χ̄'({Q})·{Q}^{o.k - 2}"
+                            f" = {scale * o.rel_dim * _ramanujan(m, e)}")
+        if K.conjugation() is not None and K.abs_sq(w) != K.from_int(scale):
+            problems.append(f"w_{Q}·w̄_{Q} ≠ {Q}^{o.k - 2} (|λ_{Q}| = 1)")
+        ap = o.ap_exact(p) if r == 1 else None
+        if ap is not None and K.mul(w, ap) != K.from_int(-(p ** (o.k - 2))):
+            problems.append(f"w_{p}·a_{p} ≠ {-(p ** (o.k - 2))} = −{p}^{o.k - 2} "
+                            f"(λ_{p} = −{p}^(1−k/2)·ā_{p})")
     for pr in problems:
         res.failures.append((o.label, pr))
 
