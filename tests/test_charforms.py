@@ -307,11 +307,12 @@ def test_pseudo_eigenvalues_for_the_trivial_character_are_the_signs(N, k):
         assert mine == [(1, [(dict(factor(N)).popitem()[0], -1)])]
 
 
-def test_units_beyond_the_absolute_method_fail_at_once():
+def test_units_beyond_the_absolute_method_split_over_q_chi():
     """S_2(443, χ), χ of order 221: the absolute charpoly of T = T_2 + ⟨g⟩ has degree
     φ(221)·dim_new = 192·36 ([CO] for dim_new) and roots bounded by 2√2 + 1 (Deligne), so
-    its integer lift needs 2(1 + ρ)^6912 < Π ℓ over the primes ℓ ≡ 1 (mod 221) below 2^21
-    (listed here with sympy), which fails: the unit is refused before any space is built."""
+    its integer lift needs 2(1 + ρ)^6912 > Π ℓ over the primes ℓ ≡ 1 (mod 221) below 2^21
+    (listed here with sympy): the absolute method refuses it at once, and the splitting
+    over Q(χ) finds the new part irreducible (one orbit of degree 6912)."""
     import sympy
 
     chi = character_orbits(443)[6]
@@ -323,5 +324,36 @@ def test_units_beyond_the_absolute_method_fail_at_once():
     assert 1 + 192 * 36 * math.log2(1 + 2 * math.sqrt(2) + 1) > math.log2(prod)
     U = CharUnit(443, 2, chi)
     with pytest.raises(ArithmeticError, match=r"absolute degree φ\(221\)·36 = 6912"):
-        _ = U.split
-    assert not U._states  # no conjugate space was built
+        U.check_liftable()
+    assert not U._states  # refused before any conjugate space was built
+    _, orbits = U.split
+    assert [(o.relative, o.dim) for o in orbits] == [(True, 6912)]
+
+
+@pytest.mark.parametrize("N,k,j", [(25, 2, 4), (23, 3, 3), (29, 3, 5), (27, 4, 4)])
+def test_relative_split_agrees_with_the_absolute_one(N, k, j, monkeypatch):
+    """Units whose new part is one orbit: forced through the splitting over Q(χ)
+    (irreducible modulo a degree-one prime 𝔩 ⇒ irreducible over Q(χ), Gauss's lemma), the
+    record has the same orbit, traces and CM data as by the absolute factorisation, only
+    no field polynomial (never lifted) and no exact a_p."""
+    import builder.forms.charforms as cf
+
+    ref = _record(N, k, j)
+    monkeypatch.setattr(cf, "RELATIVE_ABOVE", 0)
+    U = CharUnit(N, k, character_orbits(N)[j])
+    assert [o.relative for o in U.orbits] == [True]
+    R = compute_unit(N, k, PARAMS, char_index=j)
+    assert R.num_orbits == ref.num_orbits == 1
+    (f,), (g,) = R.newforms, ref.newforms
+    assert (f.dim, f.rel_dim, f.traces, f.is_cm, f.cm_disc) == (
+        g.dim, g.rel_dim, g.traces, g.is_cm, g.cm_disc)
+    assert f.field_poly == [] and f.hecke_poly_2 is None and f.ap is None
+
+
+@pytest.mark.parametrize("N,k,j", [(17, 3, 4), (33, 4, 4), (36, 3, 6)])
+def test_relative_split_never_claims_a_reducible_new_part(N, k, j):
+    """With several orbits the relative charpoly is reducible over Q(χ), hence modulo every
+    prime 𝔩: the relative test must fail (and the absolute factorisation is used)."""
+    U = CharUnit(N, k, character_orbits(N)[j])
+    assert U._irreducible_combo(tries=3) is None
+    assert len(U.orbits) >= 2 and not any(o.relative for o in U.orbits)

@@ -396,3 +396,34 @@ def test_wrong_pseudo_eigenvalues_are_named(chars, tmp_path):
         assert _failing(rep) == {"Atkin–Lehner": {"21w2c4-1"}}, message
         details = [d for _, _, d in rep.failures]
         assert any(message in d for d in details), (message, details)
+
+
+def test_orbit_split_over_q_chi_passes_and_is_checked(tmp_path, monkeypatch):
+    """A unit whose new part was split as one orbit over Q(χ) (no field polynomial lifted;
+    forced here on 23w3c3, degree 30) passes verify — Σ dim, traces, Deligne, the trace
+    formula at a prime level; an empty field_poly on an orbit that is not the unit's only
+    one (or that has hecke_poly_2) is named."""
+    import builder.forms.charforms as cf
+    from builder.forms.record import Params, compute_unit
+    from builder.storage.db import init_schema, make_engine
+    from builder.storage.writer import Writer
+
+    monkeypatch.setattr(cf, "RELATIVE_ABOVE", 0)
+    params = Params(**CHAR_PARAMS)
+    rec = compute_unit(23, 3, params, char_index=3)
+    assert rec.newforms[0].field_poly == [] and rec.num_orbits == 1
+    engine = make_engine(f"sqlite:///{tmp_path / 'newforms.sqlite'}")
+    try:
+        init_schema(engine, params)
+        Writer(engine).commit(rec)
+    finally:
+        engine.dispose()
+    with open_source(tmp_path) as src:
+        rep = verify(src)
+    assert rep.ok, rep.failures
+    assert "23w3c3" in rep.result("trace formula").checked
+    _corrupt(tmp_path, "UPDATE newforms SET hecke_poly_2 = '[1, 1]' WHERE label = '23w3c3-1'")
+    with open_source(tmp_path) as src:
+        rep = verify(src)
+    assert _failing(rep) == {"orbit records": {"23w3c3-1"}}
+    assert "empty field_poly" in rep.failures[0][2]

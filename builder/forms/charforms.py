@@ -190,14 +190,21 @@ class _Conj:
 
 class CharOrbit:
     """An absolute Galois orbit: the irreducible factor F (degree d) of the absolute
-    characteristic polynomial of the unit's splitting operator T (``CharUnit.combo``)."""
+    characteristic polynomial of the unit's splitting operator T (``CharUnit.combo``) —
+    or, with ``poly = None``, the whole new part when it is irreducible over Q(χ)
+    (``CharUnit.split``: F is then never lifted; ``dim`` = φ(m)·dim_new)."""
 
-    def __init__(self, poly: flint.fmpz_poly) -> None:
+    def __init__(self, poly: flint.fmpz_poly | None, dim: int | None = None) -> None:
         self.poly = poly
+        self._dim = dim
 
     @property
     def dim(self) -> int:
-        return self.poly.degree()
+        return self.poly.degree() if self.poly is not None else self._dim
+
+    @property
+    def relative(self) -> bool:
+        return self.poly is None
 
 
 class CharUnit:
@@ -325,6 +332,25 @@ class CharUnit:
                 f"(its charpoly needs {need.bit_length()} bits of primes ≡ 1 mod "
                 f"{self.chi.order} below 2^21, there are {have.bit_length()}); not computed")
 
+    def _irreducible_combo(self, tries: int = 2) -> tuple | None:
+        """The first combination T if its relative charpoly P ∈ Z[ζ_m][x] on V(χ) is
+        irreducible modulo a prime 𝔩 = (ℓ, ζ_m − ω_ℓ^a) of degree one (among the conjugates
+        of the first ``tries`` certified ℓ), else None.  Then P is irreducible over Q(χ) —
+        a factorisation in Z[ζ_m][x] (monic factors of a monic polynomial over the
+        integrally closed Z[ζ_m], Gauss) would reduce modulo 𝔩 — so the new part is one
+        Galois orbit: the orbits meet S_k(N, χ) in the Gal(Q̄/Q(χ))-orbits of its
+        eigenforms, i.e. in the irreducible factors of P.  P mod 𝔩 is the charpoly of T
+        on the certified V(χ^a) mod ℓ, so nothing is lifted."""
+        combo = next(self._combos())
+        for t, ell in enumerate(self.primes()):
+            if t >= tries:
+                break
+            for a in self.conjugates:
+                _, facs = _charpoly_mod(self.conj(ell, a).combo(combo), ell).factor()
+                if len(facs) == 1 and facs[0][1] == 1:
+                    return combo
+        return None
+
     @cached_property
     def split(self) -> tuple[tuple, list[CharOrbit]]:
         """(T, orbits): the first T whose absolute charpoly is squarefree; its irreducible
@@ -332,6 +358,10 @@ class CharUnit:
         would be needed for two orbits with the same minimal polynomial of a_T)."""
         if self.dim_new == 0:
             return None, []
+        if self.phi_m > 1 and self.phi_m * self.dim_new > RELATIVE_ABOVE:
+            combo = self._irreducible_combo()
+            if combo is not None:
+                return combo, [CharOrbit(None, self.phi_m * self.dim_new)]
         self.check_liftable()
         for combo in self._combos():
             P = self.charpoly(combo)
@@ -357,6 +387,9 @@ class CharUnit:
         key = (ell, id(orbit))
         if key in cache:
             return cache[key]
+        if orbit.relative:
+            cache[key] = self._rows_whole(ell)
+            return cache[key]
         combo = self.split[0]
         F = orbit.poly
         Fl = _nmod(F.coeffs(), ell)
@@ -380,6 +413,19 @@ class CharUnit:
                 break
             out[a] = (fa, A, Wf, wpiv)
         cache[key] = out
+        return out
+
+    def _rows_whole(self, ell: int) -> dict | None:
+        """``_rows`` for the whole new part (a relative orbit): f_a = charpoly of T on
+        V(χ^a), W_f = V; None if some f_a is not squarefree modulo ℓ."""
+        out = {}
+        for a in self.conjugates:
+            st = self.conj(ell, a)
+            A = st.combo(self.split[0])
+            fa = _charpoly_mod(A, ell)
+            if fa.gcd(fa.derivative()).degree() != 0:
+                return None
+            out[a] = (fa, A, st.V, st.piv)
         return out
 
     def _eigen(self, ell: int, orbit: CharOrbit):
@@ -565,6 +611,8 @@ class CharUnit:
         """Absolute charpoly of T_q on the orbit: the norm of its relative charpoly (degree
         d/φ(m), lifted to Z[ζ_m][x] as in ``charpoly``, Deligne's bound ρ = 2q^((k−1)/2));
         the orbit's rows W_f suffice, not its functionals."""
+        if orbit.relative:
+            raise ValueError("a relative orbit has no lifted absolute polynomial")
         if len(self.orbits) == 1:
             return self.charpoly(None, which=q)  # the whole new part: its spaces are built
         rho = isqrt(4 * q ** (self.k - 1)) + 1
@@ -581,37 +629,32 @@ class CharUnit:
         """a_p = 0 exactly.  For p ∤ N: ā_p = χ̄(p)a_p in every complex embedding (T_p* =
         χ̄(p)T_p, [DS] Prop. 5.5.2 / [Mi] Thm. 4.5.4), so T = Tr_{K/Q}(χ̄(p)a_p²) =
         Σ_σ |σ(a_p)|² is an integer in [0, d·4p^(k−1)] (Deligne) that vanishes iff a_p = 0:
-        one or two primes ℓ decide it.  For p | N: zero modulo primes whose product exceeds
-        twice the bound on the coefficients of a_p·F'(x) (see exact_aps)."""
+        one or two primes ℓ decide it.  For p | N, p^r ∥ N, p^s ∥ cond χ: a_p = 0 iff
+        r ≥ 2 and s < r; otherwise |a_p|² = p^(k−1) or p^(k−2) ([Li] Thm. 3, [Mi] Thm.
+        4.6.17; the tests compare it with the exact a_p)."""
         d, k = orbit.dim, self.k
-        if self.N % p:
-            need = 2 * d * 4 * p ** (k - 1) + 1
-            res, mods, prod = [], [], 1
-            for ell in self.good_primes_for(orbit):
-                aps = self.aps_mod(orbit, [p], ell)
-                data = self._eigen(ell, orbit)
-                t = 0
-                for a, by_p in aps.items():
-                    fa = data[a][0]
-                    chi_inv = pow(int(self.conj(ell, a).M.values[p % self.N]), -1, ell)
-                    t += _trace_mod((by_p[p] * by_p[p]) % fa, fa, ell) * chi_inv
-                res.append(t % ell)
-                mods.append(ell)
-                prod *= ell
-                if prod > need:
-                    return _sym(_crt(res, mods), prod) == 0
-        rho = self.root_bound(self.split[0])
-        shape = max(comb(d - 1, j) * rho ** (d - 1 - j) for j in range(d))
-        need = 2 * d * (isqrt(4 * p ** (k - 1)) + 1) * shape + 1
-        prod = 1
+        if self.N % p == 0:
+            r, s = dict(factor(self.N))[p], dict(factor(self.chi.conductor)).get(p, 0)
+            return r >= 2 and s < r
+        need = 2 * d * 4 * p ** (k - 1) + 1
+        res, mods, prod = [], [], 1
         for ell in self.good_primes_for(orbit):
             aps = self.aps_mod(orbit, [p], ell)
-            if any(not by_p[p].is_zero() for by_p in aps.values()):
-                return False
+            data = self._eigen(ell, orbit)
+            t = 0
+            for a, by_p in aps.items():
+                fa = data[a][0]
+                chi_inv = pow(int(self.conj(ell, a).M.values[p % self.N]), -1, ell)
+                t += _trace_mod((by_p[p] * by_p[p]) % fa, fa, ell) * chi_inv
+            res.append(t % ell)
+            mods.append(ell)
             prod *= ell
             if prod > need:
-                return True
-        return True  # pragma: no cover
+                return _sym(_crt(res, mods), prod) == 0
+        raise ArithmeticError("no good prime left")  # pragma: no cover
+
+
+RELATIVE_ABOVE = 500  # absolute degree above which the new part is first tried whole
 
 
 def compute_char(N: int, k: int, chi: CharacterOrbit, params: Params, t0: float) -> SpaceRecord:
@@ -644,7 +687,7 @@ def compute_char(N: int, k: int, chi: CharacterOrbit, params: Params, t0: float)
 
 def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) -> dict:
     d = o.dim
-    exact = d <= params.dim_cap
+    exact = d <= params.dim_cap and not o.relative
     if exact:
         poly, ap, al = _exact_field_data(U, o, params.ap_bound)
     else:
@@ -655,7 +698,7 @@ def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) 
     return {
         "dim": d,
         "rel_dim": d // U.phi_m,
-        "field_poly": [int(c) for c in poly.coeffs()],
+        "field_poly": [] if o.relative else [int(c) for c in poly.coeffs()],
         "field_disc": (str(int(poly.discriminant())) if d > 1 else "1") if exact else None,
         "traces": traces,
         "atkin_lehner": {},
@@ -667,7 +710,8 @@ def _orbit_record(U: CharUnit, o: CharOrbit, traces: list[int], params: Params) 
         "l_ratio": None,
         "ap": ap,
         "al_pseudo": al,
-        "hecke_poly_2": [int(c) for c in U.orbit_charpoly(o, q0).coeffs()],
+        "hecke_poly_2": None if o.relative else [
+            int(c) for c in U.orbit_charpoly(o, q0).coeffs()],
         "_key": (d, ptraces, traces),
     }
 

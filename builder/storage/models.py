@@ -124,7 +124,8 @@ class Newform(Base):
     orbit: Mapped[int] = mapped_column(Integer)
     dim: Mapped[int] = mapped_column(Integer)  # [K_f : Q]
     rel_dim: Mapped[int] = mapped_column(Integer)  # [K_f : Q(χ)] = dim / char_degree
-    field_poly: Mapped[list] = mapped_column(JSON)  # integer coefficients, constant first
+    # integer coefficients, constant first; [] for a new part split whole over Q(χ)
+    field_poly: Mapped[list] = mapped_column(JSON)
     # decimal string (may exceed 64 bits); NULL above the unit's dim_cap
     field_disc: Mapped[str | None] = mapped_column(Text, nullable=True)
     traces: Mapped[list] = mapped_column(JSON)  # Tr a_n, n = 1..trace_bound

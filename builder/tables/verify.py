@@ -23,7 +23,9 @@ dimensions            χ = 1: dim_cusp = dim S_k(Γ0(N)) ([DS] §3.5, genus form
                       χ(−1) ≠ (−1)^k the space must be 0
 Σ dim = dim_new       the orbit dimensions of a space add up to [Q(χ) : Q]·dim_new
 orbit records         num_orbits rows numbered 1..r with our labels ({N}w{k}[c{j}]-{i}; a
-                      deleted orbit is named), traces[0] = dim, deg field_poly = dim,
+                      deleted orbit is named), traces[0] = dim, deg field_poly = dim (χ ≠ 1:
+                      or empty for a new part split as one orbit over Q(χ), then the
+                      unit's only orbit, without exact a_p and hecke_poly_2),
                       field_disc = disc(field_poly), rel_dim·[Q(χ) : Q] = dim, char_order;
                       χ = 1: al_primes = the primes dividing N; χ ≠ 1: al_primes,
                       al_signs empty, al_pattern "", fricke_sign, root_number,
@@ -517,7 +519,13 @@ def _check_orbit_sum(res_sum: CheckResult, res_rec: CheckResult, sp, N, k, j, ch
         if not r.traces or int(r.traces[0]) != int(r.dim):
             problems.append(f"traces[0] = {r.traces[0] if r.traces else None} ≠ dim {r.dim}")
         poly = list(r.field_poly)
-        if len(poly) - 1 != int(r.dim):
+        if not poly and j != 0:  # split over Q(χ): the whole new part, F never lifted
+            if len(rows) != 1 or int(r.dim) != deg * int(sp.dim_new) or bool(r.has_ap) or (
+                    not _null(r.hecke_poly_2)):
+                problems.append("empty field_poly (new part irreducible over Q(χ)) but not "
+                                "the unit's only orbit of dim [Q(χ):Q]·dim_new without exact "
+                                "a_p and hecke_poly_2")
+        elif len(poly) - 1 != int(r.dim):
             problems.append(f"field_poly of degree {len(poly) - 1} ≠ dim {r.dim}")
         else:
             import flint
@@ -820,8 +828,9 @@ def _check_bad_primes_char(res: CheckResult, o: _Orbit) -> None:
     if not o.nontrivial:
         return
     res.checked.add(o.label)
-    K, m, chi = o.K, o.chi.order, o.chi
+    m, chi = o.chi.order, o.chi
     exact = bool(o.eigen or o.dim == 1) and _exact_ok(o)
+    K = o.K if exact else None
     problems = []
     for p, r in F.factorize(o.N):
         s = _vp(chi.conductor, p)
