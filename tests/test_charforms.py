@@ -330,12 +330,14 @@ def test_units_beyond_the_absolute_method_split_over_q_chi():
     assert [(o.relative, o.dim) for o in orbits] == [(True, 6912)]
 
 
-@pytest.mark.parametrize("N,k,j", [(25, 2, 4), (23, 3, 3), (29, 3, 5), (27, 4, 4)])
+@pytest.mark.parametrize("N,k,j", [(25, 2, 4), (23, 3, 3), (29, 3, 5), (27, 3, 5), (27, 4, 4)])
 def test_relative_split_agrees_with_the_absolute_one(N, k, j, monkeypatch):
     """Units whose new part is one orbit: forced through the splitting over Q(χ)
-    (irreducible modulo a degree-one prime 𝔩 ⇒ irreducible over Q(χ), Gauss's lemma), the
-    record has the same orbit, traces and CM data as by the absolute factorisation, only
-    no field polynomial (never lifted) and no exact a_p."""
+    (irreducible modulo a degree-one prime 𝔩 ⇒ irreducible over Q(χ), Gauss's lemma; at
+    27w3c5 and 29w3c5 no conjugate of the first ℓ keeps it irreducible and the subset sums
+    of the degree patterns decide, common practice), the record has the same orbit,
+    traces and CM data as by the absolute factorisation, only no field polynomial (never
+    lifted) and no exact a_p."""
     import builder.forms.charforms as cf
 
     ref = _record(N, k, j)
@@ -357,3 +359,23 @@ def test_relative_split_never_claims_a_reducible_new_part(N, k, j):
     U = CharUnit(N, k, character_orbits(N)[j])
     assert U._irreducible_combo(tries=3) is None
     assert len(U.orbits) >= 2 and not any(o.relative for o in U.orbits)
+
+
+def test_large_unit_split_over_q_chi_against_the_trace_formula():
+    """S_2(1000, χ), χ primitive of order 100 (absolute degree 40·148 = 5920): T_3 alone
+    has a square relative charpoly (it cannot separate f from a twist f ⊗ ψ with ψ(3) =
+    1), T_3 + T_7 is squarefree and irreducible over Q(χ) by the subset sums of its degree
+    patterns modulo the primes 𝔩; the one orbit's
+    traces against the trace formula with character [CS] Thm 12.4.11 (the whole space is
+    new: χ is primitive), n ≤ 20 coprime to 1000."""
+    chi = character_orbits(1000)[34]
+    assert (chi.order, chi.conductor) == (100, 1000)
+    U = CharUnit(1000, 2, chi)
+    combo, orbits = U.split
+    assert combo[0] == ((3, 1), (7, 1)) and [(o.relative, o.dim) for o in orbits] == [
+        (True, 5920)]
+    traces = U.traces(orbits[0], NMAX)
+    for n in range(1, NMAX + 1):
+        if gcd(n, 10) == 1:
+            rhs = trace_hecke_char(n, (1000, 100, chi.exps), 2).trace()
+            assert traces[n - 1] == rhs, n

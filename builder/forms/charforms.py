@@ -334,21 +334,50 @@ class CharUnit:
 
     def _irreducible_combo(self, tries: int = 2) -> tuple | None:
         """The first combination T if its relative charpoly P ∈ Z[ζ_m][x] on V(χ) is
-        irreducible modulo a prime 𝔩 = (ℓ, ζ_m − ω_ℓ^a) of degree one (among the conjugates
-        of the first ``tries`` certified ℓ), else None.  Then P is irreducible over Q(χ) —
-        a factorisation in Z[ζ_m][x] (monic factors of a monic polynomial over the
-        integrally closed Z[ζ_m], Gauss) would reduce modulo 𝔩 — so the new part is one
-        Galois orbit: the orbits meet S_k(N, χ) in the Gal(Q̄/Q(χ))-orbits of its
-        eigenforms, i.e. in the irreducible factors of P.  P mod 𝔩 is the charpoly of T
-        on the certified V(χ^a) mod ℓ, so nothing is lifted."""
-        combo = next(self._combos())
+        proved irreducible over Q(χ) by its factorisations modulo the primes 𝔩 = (ℓ, ζ_m −
+        ω_ℓ^a) of degree one (the conjugates of the first ``tries`` certified ℓ), else None.
+        A factor of P in Z[ζ_m][x] (monic factors of a monic polynomial over the integrally
+        closed Z[ζ_m], Gauss) reduces modulo every 𝔩 to a product of some of the
+        irreducible factors of P mod 𝔩, so its degree is a subset sum of their degrees at
+        every 𝔩: when only 0 and dim_new are sums at all the 𝔩 seen, P is irreducible —
+        also when no single 𝔩 keeps it irreducible (inner twists: all degrees even).  Then
+        the new part is one Galois orbit: the orbits meet S_k(N, χ) in the Gal(Q̄/Q(χ))-
+        orbits of its eigenforms, i.e. in the irreducible factors of P.  P mod 𝔩 is the
+        charpoly of T on the certified V(χ^a) mod ℓ, so nothing is lifted."""
+        combo = self._squarefree_combo()
+        if combo is None:
+            return None
+        d = self.dim_new
+        possible = (1 << (d + 1)) - 1  # bit e: a factor of degree e is not excluded
         for t, ell in enumerate(self.primes()):
             if t >= tries:
                 break
             for a in self.conjugates:
                 _, facs = _charpoly_mod(self.conj(ell, a).combo(combo), ell).factor()
-                if len(facs) == 1 and facs[0][1] == 1:
+                sums = 1
+                for g, e in facs:
+                    for _ in range(e):
+                        sums |= sums << g.degree()
+                possible &= sums
+                if possible == 1 | (1 << d):
                     return combo
+        return None
+
+    def _squarefree_combo(self, tries: int = 6) -> tuple | None:
+        """The first of the first ``tries`` distinct combinations whose relative charpoly is
+        squarefree modulo the first 𝔩 (hence over Q(χ)); T_q alone cannot separate f from
+        a twist f ⊗ ψ with ψ(q) = 1, and then its charpoly is a square."""
+        ell = next(self.primes())
+        seen: set = set()
+        for combo in self._combos():
+            if combo in seen:
+                continue
+            if len(seen) >= tries:
+                break
+            seen.add(combo)
+            f = _charpoly_mod(self.conj(ell, self.conjugates[0]).combo(combo), ell)
+            if f.gcd(f.derivative()).degree() == 0:
+                return combo
         return None
 
     @cached_property
