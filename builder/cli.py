@@ -284,7 +284,8 @@ def show(
                 f"{'even' if space['char_parity'] > 0 else 'odd'}, representative number "
                 f"{space['char_number']}; relative dimension over Q(χ) {nf['rel_dim']}"
             )
-        out.print(f"  dimension {nf['dim']}; field polynomial (constant first) {nf['field_poly']}")
+        poly = nf["field_poly"] or "not lifted (the new part is one orbit, irreducible over Q(χ))"
+        out.print(f"  dimension {nf['dim']}; field polynomial (constant first) {poly}")
         disc = nf["field_disc"] if nf["field_disc"] is not None else "(not kept: dim > dim_cap)"
         out.print(f"  field discriminant {disc}")
         pairs = zip(nf["al_primes"], nf["al_signs"], strict=True)
