@@ -17,6 +17,10 @@ Everything is computed modulo primes ℓ ≡ 1 (mod m), < 2^21, for every conjug
    it exactly.  Its irreducible factors of multiplicity one are the orbits; repeated ones
    are refined with the next prime on their primary parts (strong multiplicity one), as for
    the trivial character.  The degrees add up to φ(m)·dim V (checked).
+   Above absolute degree ``RELATIVE_ABOVE`` the new part is first tested for
+   irreducibility over Q(χ) instead, from the factorisations of its relative charpoly
+   modulo the degree-one primes 𝔩 above one or two ℓ (``_irreducible_combo``): if it is,
+   the unit is one orbit and no absolute polynomial is lifted (none is stored).
 3. **Eigen-functionals.**  For an orbit (F, the operator T_q whose charpoly it is) and a
    conjugate a: f_a = gcd(F mod ℓ, charpoly_a) is its relative factor; the functionals of
    the orbit are the kernel of f_a(T_q^t) on M*, cut further by g(T_{q'}^t) (g the
@@ -776,6 +780,7 @@ def _exact_field_data(U: CharUnit, o: CharOrbit, ap_bound: int):
     missing = [p for p in primes_up_to(ap_bound) if p not in cache]
     if missing:
         cache.update(U.exact_aps(o, missing))
+
     def coords(x) -> list[str]:
         row = flint.fmpq_mat(1, K.d, K.coords(x)) * P
         return [str(row[0, j]) for j in range(K.d)]
