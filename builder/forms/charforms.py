@@ -317,8 +317,7 @@ class CharUnit:
             prod *= ell
             if prod > need:
                 break
-        rel = [[_sym(_crt([r[j][i] for r in res], mods), prod) for i in range(len(conj))]
-               for j in range(d + 1)]
+        rel = _crt_sym(res, mods)
         return _norm_poly(rel, m, conj, rho, d)
 
     def check_liftable(self) -> None:
@@ -569,11 +568,7 @@ class CharUnit:
             prod *= ell
             if prod > need:
                 break
-        out = []
-        for n in range(B):
-            x = _crt([r[n] for r in res], mods)
-            out.append(x - prod if x > prod // 2 else x)
-        return out
+        return _crt_sym(res, mods)
 
     def exact_aps(self, orbit: CharOrbit, ps: list[int]) -> dict[int, flint.fmpq_poly]:
         """Exact a_p ∈ K = Q[x]/(F), x = a_T (F irreducible of degree d); |σ(a_p)| ≤
@@ -915,6 +910,20 @@ def _moduli_product(m: int, need: int) -> int:
     return st[1]
 
 
+def _crt_sym(res: list, mods: list[int]) -> list:
+    """The symmetric lifts modulo Π mods of residue arrays res[i] (any shape, the same for
+    every i; res[i] modulo mods[i]), by the CRT basis e_i ≡ δ_ij (mod mods[j]) at once."""
+    M = 1
+    for q in mods:
+        M *= q
+    acc = np.zeros(np.shape(res[0]), dtype=object)
+    for r, q in zip(res, mods, strict=True):
+        e = (M // q) * pow(M // q, -1, q)
+        acc = (acc + np.asarray(r, dtype=np.int64).astype(object) * e) % M
+    acc = np.where(acc > M // 2, acc - M, acc)
+    return acc.tolist()
+
+
 def _sym(x: int, prod: int) -> int:
     return x - prod if x > prod // 2 else x
 
@@ -976,8 +985,7 @@ def _norm_poly(rel: list[list[int]], m: int, conj: list[int], rho: int,
         prod *= ell
         if prod > need:
             break
-    return flint.fmpz_poly([_sym(_crt([r[i] for r in res], mods), prod)
-                            for i in range(deg + 1)])
+    return flint.fmpz_poly(_crt_sym(res, mods))
 
 
 def _coeffs(a: flint.nmod_poly, d: int) -> list[int]:
