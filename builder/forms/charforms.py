@@ -271,7 +271,8 @@ class CharUnit:
         qs = self.good_hecke_primes()
         g = self.gen
         for r in range(1, len(qs) + 1):
-            for pattern in ((1,) * r, tuple(range(1, r + 1))):
+            patterns = ((1,) * r, tuple(range(1, r + 1))) if r > 1 else ((1,),)
+            for pattern in patterns:
                 for c in (1, 2, 3):
                     yield (tuple(zip(qs[:r], pattern, strict=True)), (g, c))
 
@@ -367,17 +368,13 @@ class CharUnit:
         return None
 
     def _squarefree_combo(self, tries: int = 6) -> tuple | None:
-        """The first of the first ``tries`` distinct combinations whose relative charpoly is
+        """The first of the first ``tries`` combinations whose relative charpoly is
         squarefree modulo the first 𝔩 (hence over Q(χ)); T_q alone cannot separate f from
         a twist f ⊗ ψ with ψ(q) = 1, and then its charpoly is a square."""
         ell = next(self.primes())
-        seen: set = set()
-        for combo in self._combos():
-            if combo in seen:
-                continue
-            if len(seen) >= tries:
+        for t, combo in enumerate(self._combos()):
+            if t >= tries:
                 break
-            seen.add(combo)
             f = _charpoly_mod(self.conj(ell, self.conjugates[0]).combo(combo), ell)
             if f.gcd(f.derivative()).degree() == 0:
                 return combo
