@@ -131,7 +131,18 @@ def character_orbits(N: int) -> tuple[CharacterOrbit, ...]:
 
 def character_orbit(N: int, index: int) -> CharacterOrbit:
     """The orbit with our ``index`` at level N (ValueError naming the index if absent)."""
+    if index == 0 and not isinstance(index, bool) and isinstance(index, int):
+        return trivial_orbit(N)
     orbits = character_orbits(N)
     if isinstance(index, bool) or not isinstance(index, int) or not 0 <= index < len(orbits):
         raise ValueError(f"char_index must be 0..{len(orbits) - 1} at level {N}, got {index!r}")
     return orbits[index]
+
+
+@lru_cache(maxsize=256)
+def trivial_orbit(N: int) -> CharacterOrbit:
+    """The trivial character mod N (index 0), without enumerating the whole group: the same
+    object as ``character_orbits(N)[0]`` (order 1 sorts first)."""
+    N = check_level(N)
+    exps = tuple(0 if gcd(n, N) == 1 else -1 for n in range(N))
+    return CharacterOrbit(N, 0, 1, (1,), 1, 1, 1, exps)

@@ -83,6 +83,14 @@ def test_orbit_lookup_and_bad_index():
         character_orbit(63, len(character_orbits(63)))
     with pytest.raises(ValueError, match="char_index"):
         character_orbit(5, -1)
+    with pytest.raises(ValueError, match="char_index"):
+        character_orbit(5, True)
+
+
+@pytest.mark.parametrize("N", [1, 2, 3, 4, 12, 60, 97, 128, 210])
+def test_trivial_shortcut_is_the_enumerated_index_0(N):
+    # the unit's fast path must give exactly the orbit the full enumeration puts first
+    assert character_orbit(N, 0) == character_orbits(N)[0]
 
 
 def test_primes_one_mod_m():

@@ -91,22 +91,26 @@ def _poly_at(f: flint.nmod_poly, A: np.ndarray, ell: int) -> np.ndarray:
     return np.mod(R, ell)
 
 
-def _rows_basis(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:
-    """rref rows of the row space of A (mod ℓ) and their pivots."""
-    if A.shape[0] == 0:
-        return np.zeros((0, A.shape[1])), []
-    R, piv = rref_mod(np.mod(A, ell), ell)
-    return R, piv
-
-
 def _left_kernel(A: np.ndarray, ell: int) -> np.ndarray:
     """Rows spanning {x : x·A = 0} modulo ℓ."""
-    K, _ = _kernel_mod(np.ascontiguousarray(A.T), ell)
-    return np.ascontiguousarray(K.T)
+    return _left_kernel_cols(A, ell)[0]
+
+
+def _left_kernel_cols(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:
+    """(K, cols): rows K spanning {x : x·A = 0} modulo ℓ, K[:, cols] = identity."""
+    K, free = _kernel_mod(np.ascontiguousarray(A.T), ell)
+    return np.ascontiguousarray(K.T), free
+
+
+def _product_basis(Y: np.ndarray, ycols: list[int], S: np.ndarray, scols: list[int],
+                   ell: int) -> tuple[np.ndarray, list[int]]:
+    """(Y·S, cols) for Y[:, ycols] = identity and S[:, scols] = identity: then
+    (Y·S)[:, scols[ycols]] = identity — a basis with its pivots, no elimination."""
+    return np.mod(matmul_mod(Y, S, ell), ell), [scols[c] for c in ycols]
 
 
 def _restrict_rows(V: np.ndarray, piv: list[int], T: np.ndarray, ell: int) -> np.ndarray:
-    """Matrix of T (row action) on the row space of V (rref, pivots piv)."""
+    """Matrix of T (row action) on the row space of V, V[:, piv] = identity."""
     return matmul_mod(V, T, ell)[:, piv]
 
 
@@ -121,7 +125,7 @@ def _power(g: flint.fmpz_poly, e: int) -> flint.fmpz_poly:
 
 
 class _Conj:
-    """M_k(N, χ^a)⁺ modulo ℓ with its certified new part V (rows, rref)."""
+    """M_k(N, χ^a)⁺ modulo ℓ with its certified new part V (rows, V[:, piv] = identity)."""
 
     def __init__(self, unit: CharUnit, ell: int, a: int) -> None:
         self.unit, self.ell, self.a = unit, ell, a
@@ -136,7 +140,8 @@ class _Conj:
             self.ok = unit.dim_cusp == 0
             return
         B = M.boundary()
-        S = _left_kernel(B, ell) if B.shape[1] else np.eye(M.dim)
+        S, scols = _left_kernel_cols(B, ell) if B.shape[1] else (np.eye(M.dim),
+                                                                  list(range(M.dim)))
         self.dim_s = S.shape[0]
         if S.shape[0] != unit.dim_cusp:
             return
@@ -151,11 +156,10 @@ class _Conj:
                 conds.append(M.degeneracy(tgt, t))
         if conds and S.shape[0]:
             D = matmul_mod(S, np.concatenate(conds, axis=1), ell)
-            Y = _left_kernel(D, ell)
-            V = matmul_mod(Y, S, ell) if Y.shape[0] else np.zeros((0, M.dim))
+            Y, ycols = _left_kernel_cols(D, ell)
+            self.V, self.piv = _product_basis(Y, ycols, S, scols, ell)
         else:
-            V = S
-        self.V, self.piv = _rows_basis(V, ell)
+            self.V, self.piv = np.mod(S, ell), scols
         self.ok = self.V.shape[0] == unit.dim_new
 
     @cached_property
@@ -163,7 +167,7 @@ class _Conj:
         return {}
 
     def op(self, q: int) -> np.ndarray:
-        """T_q on V (row action, V's rref coordinates)."""
+        """T_q on V (row action, coordinates read at V's pivot columns)."""
         if q not in self._ops:
             self._ops[q] = _restrict_rows(self.V, self.piv, self.M.hecke(q), self.ell)
         return self._ops[q]
@@ -435,8 +439,8 @@ class CharUnit:
                 break
             fa = fa * flint.nmod_poly([pow(int(fa.coeffs()[-1]), -1, ell)], ell)
             # the orbit inside V: rows W_f (in M coordinates) = ker f_a(T) on V
-            Kf = _left_kernel(_poly_at(fa, A, ell), ell)
-            Wf, wpiv = _rows_basis(matmul_mod(Kf, st.V, ell), ell)
+            Kf, kcols = _left_kernel_cols(_poly_at(fa, A, ell), ell)
+            Wf, wpiv = _product_basis(Kf, kcols, st.V, st.piv, ell)
             if Wf.shape[0] != fa.degree():
                 out = None
                 break
@@ -554,13 +558,9 @@ class CharUnit:
         res, mods, prod = [], [], 1
         for ell in self.good_primes_for(orbit):
             aps = self.aps_mod(orbit, ps, ell)
-            tot = [0] * B
-            for a, by_p in aps.items():
-                fa = self._eigen(ell, orbit)[a][0]
-                values = self.conj(ell, a).M.values
-                tr = _traces_rel(by_p, fa, B, N, k, ell, values)
-                tot = [(x + y) % ell for x, y in zip(tot, tr, strict=True)]
-            res.append(tot)
+            eig = self._eigen(ell, orbit)
+            items = [(by_p, eig[a][0], self.conj(ell, a).M.values) for a, by_p in aps.items()]
+            res.append(_traces_rel(items, B, N, k, ell))
             mods.append(ell)
             prod *= ell
             if prod > need:
@@ -1003,32 +1003,78 @@ def _crt_poly(pairs: list, ell: int) -> flint.nmod_poly:
     return x % m
 
 
-def _traces_rel(aps: dict, f: flint.nmod_poly, B: int, N: int, k: int, ell: int,
-                values: np.ndarray) -> list[int]:
-    """Tr over F_ℓ[x]/(f) of a_n, n = 1..B, from a_p by a_{p^(r+1)} = a_p a_{p^r} −
-    χ(p) p^(k−1) a_{p^(r−1)} ([DS] Prop. 5.8.5 with character) and multiplicativity."""
-    one = flint.nmod_poly([1], ell)
-    a: list = [None] * (B + 1)
-    a[1] = one
-    for p, v in aps.items():
-        a[p] = v
-    for p in primes_up_to(B):
-        c = int(values[p % N]) * pow(p, k - 1, ell) % ell
-        prev2, prev, q = one, a[p], p
-        while q * p <= B:
-            nxt = (a[p] * prev - prev2 * c) % f
-            prev2, prev = prev, nxt
-            q *= p
-            a[q] = nxt
+def _traces_rel(items: list, B: int, N: int, k: int, ell: int) -> list[int]:
+    """Σ_a Tr over F_ℓ[x]/(f_a) of a_n(χ^a-form), n = 1..B, for ``items`` = [(a_p by p,
+    f_a, χ^a values mod ℓ)], from the a_p by a_{p^(r+1)} = a_p a_{p^r} − χ(p) p^(k−1)
+    a_{p^(r−1)} ([DS] Prop. 5.8.5 with character) and multiplicativity.
+
+    All conjugates of one degree and all n of one layer (prime powers of one exponent;
+    composites by their number of prime factors) are multiplied at once: elements are
+    coefficient rows, a product z·y is z times the multiplication matrix of y (rows
+    x^i·y mod f_a), batched over the conjugates — float64 and exact while d < 2^11
+    (every sum < d·ℓ² < 2^53)."""
+    tot = np.zeros(B + 1, dtype=np.int64)
+    by_deg: dict[int, list] = {}
+    for it in items:
+        by_deg.setdefault(it[1].degree(), []).append(it)
+    for d, group in by_deg.items():
+        if d >= 2048:
+            raise ArithmeticError(f"relative degree {d} too large for the batched traces")
+        tot += _traces_rel_batch(group, d, B, N, k, ell)
+    return [int(x) % ell for x in tot[1:]]
+
+
+def _traces_rel_batch(group: list, d: int, B: int, N: int, k: int, ell: int) -> np.ndarray:
+    ps_all = primes_up_to(B)
+    A = len(group)
+    E = np.zeros((A, B + 1, d))  # E[a, n] = coefficients of a_n in F_ℓ[x]/(f_a)
+    E[:, 1, 0] = 1.0
+    top = np.zeros((A, d))  # x^d ≡ Σ top_j x^j (mod f_a)
+    pows = np.zeros((A, d))
+    for r, (aps, f, _) in enumerate(group):
+        for p in ps_all:
+            cs = [int(c) for c in aps[p].coeffs()]
+            E[r, p, : len(cs)] = cs
+        fc = [int(c) for c in f.coeffs()]
+        top[r] = [(-c) % ell for c in fc[:d]]
+        pows[r] = _power_sums(f, ell)
+    chi_p = np.array([[int(g[2][p % N]) * pow(p, k - 1, ell) % ell for p in ps_all]
+                      for g in group], dtype=np.float64)
+
+    def mult_matrix(y: np.ndarray) -> np.ndarray:
+        """(A, d, d): row i = x^i·y mod f_a, so z·y = z @ M for coefficient rows z."""
+        M = np.zeros((A, d, d))
+        M[:, 0] = y
+        for i in range(1, d):
+            prev = M[:, i - 1]
+            M[:, i, 1:] = prev[:, :-1]
+            M[:, i, 0] = 0.0
+            M[:, i] += prev[:, -1:] * top
+            np.mod(M[:, i], ell, out=M[:, i])
+        return M
+
+    for t, p in enumerate(ps_all):
+        if p * p > B:
+            break
+        Mp = mult_matrix(E[:, p])
+        c = chi_p[:, t : t + 1]
+        prev2, prev = 1, p
+        while prev * p <= B:
+            E[:, prev * p] = np.mod(np.matmul(E[:, prev][:, None, :], Mp)[:, 0]
+                                    - c * E[:, prev2], ell)
+            prev2, prev = prev, prev * p
+    layers: dict[int, dict[int, list[int]]] = {}
     for n in range(2, B + 1):
         fa = factor(n)
         if len(fa) > 1:
-            val = one
-            for p, e in fa:
-                val = (val * a[p**e]) % f
-            a[n] = val
-    ps = _power_sums(f, ell)
-    return [_trace_mod(a[n], f, ell, ps) for n in range(1, B + 1)]
+            q = fa[0][0] ** fa[0][1]
+            layers.setdefault(len(fa), {}).setdefault(q, []).append(n // q)
+    for size in sorted(layers):
+        for q, ms in layers[size].items():
+            idx = np.array(ms)
+            E[:, q * idx] = np.mod(np.matmul(E[:, idx], mult_matrix(E[:, q])), ell)
+    per_conj = np.mod(np.einsum("anj,aj->an", E, pows), ell)  # d terms < ℓ² each: exact
+    return np.mod(per_conj.astype(np.int64).sum(axis=0), ell)
 
 
 def _power_sums(f: flint.nmod_poly, ell: int) -> list[int]:

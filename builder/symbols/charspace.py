@@ -126,24 +126,32 @@ class CharSpace:
         pivots = _eliminate_mod(rels, ell)
         free_gens = [g for g in range(ngen) if g not in pivots]
         pos = {g: t for t, g in enumerate(free_gens)}
-        gen_expr: list[dict[int, int]] = []
+        glen = np.zeros(ngen + 1, dtype=np.int64)  # generator g's expression, CSR
+        gidx: list[int] = []
+        gval: list[int] = []
         for g in range(ngen):
-            gen_expr.append({pos[g]: 1} if g in pos else {pos[h]: v for h, v in
-                                                          pivots[g].items()})
+            if g in pos:
+                gidx.append(pos[g])
+                gval.append(1)
+                glen[g + 1] = 1
+            else:
+                expr = pivots[g]
+                gidx.extend(pos[h] for h in expr)
+                gval.extend(expr.values())
+                glen[g + 1] = len(expr)
         self.free = [gen_symbol[g] for g in free_gens]
-        indptr = [0]
-        gens: list[int] = []
-        vals: list[int] = []
-        for x in range(self.nsym):
-            g = root_of[x]
-            if g >= 0:
-                m = mult[x]
-                for t, v in gen_expr[g].items():
-                    gens.append(t)
-                    vals.append(v * m % ell)
-            indptr.append(len(gens))
-        self._csr = (np.array(indptr, dtype=np.int64), np.array(gens, dtype=np.int64),
-                     np.array(vals, dtype=np.int64))
+        gptr = np.cumsum(np.append(glen, 0))  # one spare entry: no generators at all
+        roots = np.asarray(root_of, dtype=np.int64)
+        alive = roots >= 0
+        r = np.where(alive, roots, 0)
+        cnt = np.where(alive, gptr[r + 1] - gptr[r], 0)
+        indptr = np.concatenate([[0], np.cumsum(cnt)])
+        rep = np.repeat(np.arange(self.nsym), cnt)
+        at = np.repeat(gptr[r] - indptr[:-1], cnt) + np.arange(int(indptr[-1]))
+        gidx_a = np.asarray(gidx, dtype=np.int64)
+        gval_a = np.asarray(gval, dtype=np.int64)
+        vals = gval_a[at] * np.asarray(mult, dtype=np.int64)[rep] % ell
+        self._csr = (indptr.astype(np.int64), gidx_a[at], vals)
 
     def _two_term_classes(self) -> tuple[list[int], list[int], list[int]]:
         """The two-term relations: x + xσ = 0 and (sign s) x = s·x*, as x = m·y with
@@ -313,12 +321,14 @@ class CharSpace:
             return np.concatenate([self.images(np.array([x], dtype=np.int64), n)
                                    for n in ns])
         ell = self.ell
-        W = np.zeros((len(ns), self.nsym))
-        one = np.array([x], dtype=np.int64)
-        for r, n in enumerate(ns):
-            _, syms, coefs = self._terms(one, hecke_matrices(n))
-            W[r] = _bincount_mod(syms, coefs, self.nsym, ell)
-        return np.mod(matmul_mod(W, self._dense_coords, ell), ell)
+        idx, coefs, lam = _symbol_hecke_block(self.N, self.k, ell, x, tuple(ns))
+        weights = self._float_values[lam] if coefs is None else coefs * self.values[lam] % ell
+        W = _bincount_mod(idx, weights, len(ns) * self.nsym, ell)
+        return np.mod(matmul_mod(W.reshape(len(ns), self.nsym), self._dense_coords, ell), ell)
+
+    @cached_property
+    def _float_values(self) -> np.ndarray:
+        return self.values.astype(np.float64)
 
     @cached_property
     def _dense_coords(self) -> np.ndarray:
@@ -563,13 +573,53 @@ def _eliminate_mod(relations: list[dict[int, int]], ell: int) -> dict[int, dict[
     return pivots
 
 
+@lru_cache(maxsize=512)  # emptied between units (builder.symbols.space.clear_caches)
+def _symbol_hecke_terms(N: int, k: int, ell: int, x: int,
+                        n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """T_n(x) before the character: (symbol, coefficient mod ℓ, λ) with
+    T_n(x) = Σ coefficient·χ(λ)·[symbol] (Merel's Heilbronn set, as ``CharSpace._terms``).
+    Nothing here depends on χ, so the Galois conjugates χ^a of a unit (which share ℓ)
+    and its orbits share one Heilbronn sum per (x, n) instead of one each."""
+    P = p1(N)
+    psi, w = len(P), k - 2
+    a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
+    i, j = divmod(x, psi)
+    u, v = int(P.c[j]), int(P.d[j])
+    t, lam = P.index_scalar(u * a + v * c, u * b + v * d)
+    ok = t >= 0
+    t, lam = t[ok], lam[ok]
+    if w == 0:
+        return t.astype(np.int32), np.ones(len(t), dtype=np.int32), lam.astype(np.int32)
+    A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, w, ell)
+    syms, coefs, lams = [], [], []
+    for m in range(w + 1):
+        sel = A[:, m] != 0
+        syms.append(m * psi + t[sel])
+        coefs.append(A[sel, m])
+        lams.append(lam[sel])
+    return tuple(np.concatenate(z).astype(np.int32) for z in (syms, coefs, lams))
+
+
+@lru_cache(maxsize=8)  # emptied between units (builder.symbols.space.clear_caches)
+def _symbol_hecke_block(N: int, k: int, ell: int, x: int,
+                        ns: tuple[int, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``_symbol_hecke_terms`` for every n in ns, concatenated, the symbol of the r-th
+    shifted by r·nsym: one bincount gives all the rows T_n(x).  Weight 2: coefficients
+    None (all 1)."""
+    nsym = (k - 1) * len(p1(N))
+    parts = [_symbol_hecke_terms(N, k, ell, x, n) for n in ns]
+    idx = np.concatenate([t[0].astype(np.int64) + r * nsym for r, t in enumerate(parts)])
+    coefs = None if k == 2 else np.concatenate([t[1] for t in parts]).astype(np.int64)
+    return idx, coefs, np.concatenate([t[2] for t in parts])
+
+
 def _bincount_mod(idx: np.ndarray, coef: np.ndarray, n: int, ell: int) -> np.ndarray:
     """Σ coef over equal indices, modulo ℓ (float sums kept below 2^52: exact)."""
     out = np.zeros(n)
     step = max(1, int((1 << 52) // ell))
     for s0 in range(0, len(idx), step):
-        out += np.bincount(idx[s0:s0 + step], weights=coef[s0:s0 + step].astype(np.float64),
-                           minlength=n)
+        wt = coef[s0:s0 + step].astype(np.float64, copy=False)
+        out += np.bincount(idx[s0:s0 + step], weights=wt, minlength=n)
         np.mod(out, ell, out=out)
     return out
 

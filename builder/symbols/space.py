@@ -883,8 +883,12 @@ def _act(poly: list, h: tuple[int, int, int, int], w: int) -> list:
 
 def clear_caches() -> None:
     """Forget every cached space (the batch builder calls this between units)."""
+    from builder.symbols import charspace  # it imports this module
+
     cuspidal_space.cache_clear()
     p1.cache_clear()
+    charspace._symbol_hecke_terms.cache_clear()
+    charspace._symbol_hecke_block.cache_clear()
 
 
 @lru_cache(maxsize=32, typed=True)  # typed: 11.0 or True must not hit a cached int
