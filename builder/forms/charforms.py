@@ -384,11 +384,23 @@ class CharUnit:
                 return combo
         return None
 
+    def _squarefree_mod(self, combo: tuple, ell: int) -> bool:
+        """Whether the absolute charpoly of T, Π_a charpoly(T | V(χ^a)), is squarefree
+        modulo the certified ℓ — then it is squarefree over Q (a square factor would
+        reduce to one); one image per conjugate instead of a lift."""
+        P = flint.nmod_poly([1], ell)
+        for a in self.conjugates:
+            P *= _charpoly_mod(self.conj(ell, a).combo(combo), ell)
+        return P.gcd(P.derivative()).degree() == 0
+
     @cached_property
     def split(self) -> tuple[tuple, list[CharOrbit]]:
         """(T, orbits): the first T whose absolute charpoly is squarefree; its irreducible
         factors are then in bijection with the Galois orbits of newforms (equal factors
-        would be needed for two orbits with the same minimal polynomial of a_T)."""
+        would be needed for two orbits with the same minimal polynomial of a_T).  The
+        combinations squarefree modulo the first certified ℓ come first (each is squarefree
+        over Q, and the others would be lifted in vain); then the rest, in case ℓ divides
+        every discriminant."""
         if self.dim_new == 0:
             return None, []
         if self.phi_m > 1 and self.phi_m * self.dim_new > RELATIVE_ABOVE:
@@ -396,7 +408,18 @@ class CharUnit:
             if combo is not None:
                 return combo, [CharOrbit(None, self.phi_m * self.dim_new)]
         self.check_liftable()
-        for combo in self._combos():
+        ell = next(self.primes())
+        skipped: list[tuple] = []
+
+        def candidates():
+            for c in self._combos():
+                if self._squarefree_mod(c, ell):
+                    yield c
+                else:
+                    skipped.append(c)
+            yield from skipped
+
+        for combo in candidates():
             P = self.charpoly(combo)
             _, facs = P.factor()
             if all(e == 1 for _, e in facs):

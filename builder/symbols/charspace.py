@@ -321,7 +321,8 @@ class CharSpace:
             return np.concatenate([self.images(np.array([x], dtype=np.int64), n)
                                    for n in ns])
         ell = self.ell
-        idx, coefs, lam = _symbol_hecke_block(self.N, self.k, ell, x, tuple(ns))
+        idx, coefs, lam = _symbol_hecke_block(self.N, self.k, ell if self.k > 2 else 0, x,
+                                              tuple(ns))
         weights = self._float_values[lam] if coefs is None else coefs * self.values[lam] % ell
         W = _bincount_mod(idx, weights, len(ns) * self.nsym, ell)
         return np.mod(matmul_mod(W.reshape(len(ns), self.nsym), self._dense_coords, ell), ell)
@@ -579,7 +580,8 @@ def _symbol_hecke_terms(N: int, k: int, ell: int, x: int,
     """T_n(x) before the character: (symbol, coefficient mod ℓ, λ) with
     T_n(x) = Σ coefficient·χ(λ)·[symbol] (Merel's Heilbronn set, as ``CharSpace._terms``).
     Nothing here depends on χ, so the Galois conjugates χ^a of a unit (which share ℓ)
-    and its orbits share one Heilbronn sum per (x, n) instead of one each."""
+    and its orbits share one Heilbronn sum per (x, n) instead of one each; in weight 2
+    nothing depends on ℓ either (callers pass ℓ = 0), so all primes share it too."""
     P = p1(N)
     psi, w = len(P), k - 2
     a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
