@@ -765,6 +765,17 @@ def fmpz_matrix(Z: np.ndarray) -> flint.fmpz_mat:
                           else Z.ravel().tolist())
 
 
+def residue_nmod_mat(A: np.ndarray, ell: int) -> flint.nmod_mat:
+    """A residue (or any integer-valued float/int) array modulo ℓ as an nmod_mat.  Through
+    fmpz_mat: FLINT builds that from Python ints about twice as fast as nmod_mat does
+    from the same list (measured, python-flint 0.9)."""
+    r, c = A.shape
+    if r == 0 or c == 0:
+        return flint.nmod_mat(r, c, ell)
+    return flint.nmod_mat(flint.fmpz_mat(r, c, np.mod(A, ell).astype(np.int64).ravel().tolist()),
+                          ell)
+
+
 def nmod_matrix(A: QMat, ell: int) -> flint.nmod_mat:
     """A modulo ℓ as an nmod_mat (any word-size prime ℓ not dividing den)."""
     M = flint.nmod_mat(fmpz_matrix(A.num), ell)

@@ -60,7 +60,7 @@ from builder.forms.eigen import _crt, _h_matrix, deligne_trace_bound, krylov_sta
 from builder.forms.fields import NumberField, canonical_polynomial, change_basis_matrix
 from builder.forms.newspace import _kernel_mod
 from builder.forms.record import NewformRecord, Params, SpaceRecord, make_label
-from builder.linalg_modp import matmul_mod, rref_mod
+from builder.linalg_modp import matmul_mod, residue_nmod_mat, rref_mod
 from builder.symbols.charspace import CharSpace, char_space, induced_values
 
 FIELD_BOUND = 50
@@ -78,17 +78,30 @@ def _charpoly_mod(A: np.ndarray, ell: int) -> flint.nmod_poly:
     s = A.shape[0]
     if s == 0:
         return flint.nmod_poly([1], ell)
-    M = flint.nmod_mat(s, s, np.mod(A, ell).astype(np.int64).ravel().tolist(), ell)
-    return M.charpoly()
+    return residue_nmod_mat(A, ell).charpoly()
 
 
 def _poly_at(f: flint.nmod_poly, A: np.ndarray, ell: int) -> np.ndarray:
+    """f(A) modulo ℓ by Paterson–Stockmeyer (common practice): the powers I, A, …, A^(b−1)
+    once, then Horner in A^b over blocks of b coefficients — about 2√deg f matrix
+    products instead of deg f (the eigen-functionals evaluate f_a of degree up to
+    dim_new on the whole symbol space)."""
     s = A.shape[0]
+    coeffs = [int(x) for x in f.coeffs()]
+    b = max(1, isqrt(len(coeffs)))
+    while b > 1 and b * s * s > (1 << 24):  # the powers kept: at most 128 MB
+        b -= 1
+    powers = [np.eye(s)]
+    for _ in range(1, b):
+        powers.append(np.mod(matmul_mod(powers[-1], A, ell), ell))
+    stack = np.stack(powers)
+    step = np.mod(matmul_mod(powers[-1], A, ell), ell)  # A^b
     R = np.zeros((s, s))
-    for c in reversed([int(x) for x in f.coeffs()]):
-        R = matmul_mod(R, A, ell)
-        R[np.arange(s), np.arange(s)] += c
-    return np.mod(R, ell)
+    for i in reversed(range(0, len(coeffs), b)):
+        block = np.array(coeffs[i : i + b], dtype=np.float64)
+        part = np.mod(np.tensordot(block, stack[: len(block)], axes=1), ell)  # exact
+        R = np.mod(matmul_mod(R, step, ell) + part, ell)
+    return R
 
 
 def _left_kernel(A: np.ndarray, ell: int) -> np.ndarray:

@@ -57,6 +57,7 @@ from builder.linalg_modp import (
     int_matmul,
     matmul_mod,
     q_equal,
+    residue_nmod_mat,
     rref_mod,
 )
 from builder.symbols.space import SymbolSpace, cuspidal_space
@@ -359,7 +360,7 @@ class NewSpace:
                 need = 2 * (1 + rho) ** s
             elif A.shape[0] != s:
                 continue
-            M = flint.nmod_mat(s, s, np.mod(A, ell).astype(np.int64).ravel().tolist(), ell)
+            M = residue_nmod_mat(A, ell)
             res.append([int(c) for c in M.charpoly().coeffs()])
             mods.append(ell)
             prod *= ell
