@@ -77,6 +77,37 @@ def beyond_lift(units: list) -> list:
     return out
 
 
+def cm_suspects(units: list) -> set:
+    """The units where a CM orbit, if there is one, costs a long proof: some fundamental
+    D < 0 with |D| | N, D² ∤ N and χ·χ_D of conductor dividing N/|D| — the nebentypus of
+    a theta series of Q(√D) of level N (common practice: θ_ψ has level |D|·N𝔪 and
+    character χ_D·ψ|_Z).  Their CM proof runs to the Sturm bound of lcm(N, D²)
+    (charforms._cm_discriminant); the other units prove or refute CM within Sturm(N) or
+    at the first inert a_p ≠ 0.  A superset of the expensive units: the bench samples
+    them as a stratum of their own."""
+    sys.path.insert(0, str(ROOT))
+    from math import gcd
+
+    from builder.characters import character_orbits
+    from builder.forms.unit import _fundamental_discriminants_dividing, kronecker
+
+    out = set()
+    for N, k, j, order in units:
+        if order == 1:
+            continue  # χ_D alone has conductor |D|, which divides N/|D| only if D² | N
+        chi = character_orbits(N)[j]
+        for D in _fundamental_discriminants_dividing(N):
+            M = N // -D
+            if M % -D == 0:
+                continue  # D² | N: the bound is Sturm(N)
+            if all(gcd(n, N) > 1 or (chi.exponent(n) == 0 and kronecker(D, n) == 1)
+                   or (2 * chi.exponent(n) == order and kronecker(D, n) == -1)
+                   for n in range(1 + M, N, M)):
+                out.add((N, k, j, order))
+                break
+    return out
+
+
 def _unit(N: int, k: int, j: int) -> dict:
     sys.path.insert(0, str(ROOT))
     from builder.arith import primes_up_to

@@ -64,3 +64,18 @@ def test_bad_index():
             merel(bad)
     with pytest.raises(ValueError, match=r"\bn\b"):
         merel(2.0)
+
+
+@pytest.mark.parametrize(("n", "u", "v", "N"), [(2053, 3, 7, 744), (4099, 1, 0, 97),
+                                                 (4099, 0, 1, 11), (2048, 5, 2, 63),
+                                                 (15, 2, 3, 28)])
+def test_heilbronn_points_are_the_images_of_the_set(n, u, v, N):
+    # the recurrence run on z = u·x + v·y must give, as a multiset, the points (u, v)·h
+    # of the matrices h of hecke_matrices (Cremona [Cr] §2.4 for primes, Merel otherwise)
+    from builder.symbols.heilbronn import hecke_matrices, heilbronn_points
+
+    a, b, c, d = hecke_matrices(n)
+    want = sorted(zip(np.mod(u * a + v * c, N).tolist(), np.mod(u * b + v * d, N).tolist(),
+                      strict=True))
+    C, D = heilbronn_points(n, u, v, N)
+    assert sorted(zip(C.tolist(), D.tolist(), strict=True)) == want

@@ -28,7 +28,7 @@ import numpy as np
 
 from builder.characters import CharacterOrbit
 from builder.linalg_modp import matmul_mod
-from builder.symbols.heilbronn import hecke_matrices
+from builder.symbols.heilbronn import hecke_matrices, heilbronn_points
 from builder.symbols.manin import poly_action
 from builder.symbols.p1 import P1, p1
 from builder.symbols.space import poly_action_row
@@ -584,14 +584,17 @@ def _symbol_hecke_terms(N: int, k: int, ell: int, x: int,
     nothing depends on ℓ either (callers pass ℓ = 0), so all primes share it too."""
     P = p1(N)
     psi, w = len(P), k - 2
-    a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
     i, j = divmod(x, psi)
     u, v = int(P.c[j]), int(P.d[j])
+    if w == 0:
+        t, lam = P.index_scalar(*heilbronn_points(n, u, v, N))
+        ok = t >= 0
+        return (t[ok].astype(np.int32), np.ones(int(ok.sum()), dtype=np.int32),
+                lam[ok].astype(np.int32))
+    a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
     t, lam = P.index_scalar(u * a + v * c, u * b + v * d)
     ok = t >= 0
     t, lam = t[ok], lam[ok]
-    if w == 0:
-        return t.astype(np.int32), np.ones(len(t), dtype=np.int32), lam.astype(np.int32)
     A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, w, ell)
     syms, coefs, lams = [], [], []
     for m in range(w + 1):

@@ -116,6 +116,35 @@ def _cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarr
     return cols[0][order], cols[1][order], cols[2][order], cols[3][order]
 
 
+def heilbronn_points(n: int, u: int, v: int, N: int) -> tuple[np.ndarray, np.ndarray]:
+    """(u·a + v·c, u·b + v·d) mod N for every matrix [[a, b], [c, d]] of the Heilbronn set
+    of T_n (``hecke_matrices``), in some order: all that a weight-2 Heilbronn sum on the
+    Manin symbol (u : v) needs.  For an odd prime n the continued fractions of
+    ``_cremona_prime`` run directly on z = u·x + v·y (the same linear recurrence), so no
+    matrix is built — the sets of the large primes of a CM proof are never stored."""
+    from builder.arith import is_prime
+
+    if not (n > 2 and n % 2 and is_prime(n)) or n < CACHED_BELOW:
+        a, b, c, d = hecke_matrices(n)
+        return np.mod(u * a + v * c, N), np.mod(u * b + v * d, N)
+    p = n
+    r = np.arange(-(p // 2), p // 2 + 1, dtype=np.int64)
+    z1, z2 = np.full(len(r), u * p % N, dtype=np.int64), np.mod(v - u * r, N)
+    a, b = np.full(len(r), -p, dtype=np.int64), r.copy()
+    cs, ds = [np.array([u % N], dtype=np.int64), z1], [np.array([v * p % N], dtype=np.int64), z2]
+    while len(a):
+        live = b != 0
+        a, b, z1, z2 = a[live], b[live], z1[live], z2[live]
+        if not len(a):
+            break
+        q = _nearest_vec(a, b)
+        a, b = -b, a - b * q
+        z1, z2 = z2, np.mod(q * z2 - z1, N)
+        cs.append(z1)
+        ds.append(z2)
+    return np.concatenate(cs), np.concatenate(ds)
+
+
 def _nearest_vec(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """``_nearest`` elementwise (b ≠ 0)."""
     neg = b < 0
