@@ -1,17 +1,20 @@
 """Benchmark (issue 7): every character orbit in the box N·k² ≤ 4000 — how long with 2 workers?
 
-    python benchmarks/bench_characters.py               # sample of 60 units, records
-    python benchmarks/bench_characters.py --count 20 --cap 120 --no-record
+    python benchmarks/bench_characters.py               # 60 + 12 units, records
+    python benchmarks/bench_characters.py --count 20 --count-long 4 --cap 120 --no-record
 
 The box: every weight k ≥ 2 and level N with N·k² ≤ 4000, every Galois orbit of Dirichlet
 characters mod N with χ(−1) = (−1)^k (the trivial one included), full units with the
 default bounds of a job (trace_bound 1000, exact a_p to 100 for orbits of dimension ≤ 20).
 Each unit runs in a fresh process, timed after the level-free Heilbronn matrices for the
 trace bound are built (a worker builds them once, for all its units).
-A uniform random sample of the units (fixed seed) is computed by two processes at once,
-as the two workers of a real run share the machine; mean × units / 2 projects the wall
-time of the whole box with 2 workers.  Numbers go to the "## Characters (issue 7)"
-section of benchmarks/README.md with the machine and the date.
+The units are split in two strata — those whose CM proof may have to run to a large
+Sturm bound (``cm_suspects``), and the rest — and a uniform random sample of each (fixed
+seed) is computed by two processes at once, as the two workers of a real run share the
+machine; Σ units_s × mean_s / 2 projects the wall time of the whole box with 2 workers
+(stratified sampling: the few long units no longer swing a small uniform sample).
+Numbers go to the "## Characters (issue 7)" section of benchmarks/README.md with the
+machine and the date.
 """
 
 from __future__ import annotations
@@ -36,6 +39,7 @@ ROOT = HERE.parent
 SECTION = "## Characters (issue 7)"
 BOX = 4000
 SEED = 20261202
+LONG_PROOF = 3000  # CM-proof bound above which a unit is in the stratum of long proofs
 ENV = {**os.environ, "PYTHONHASHSEED": "0", "OPENBLAS_NUM_THREADS": "1",
        "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
@@ -77,21 +81,23 @@ def beyond_lift(units: list) -> list:
     return out
 
 
-def cm_suspects(units: list) -> set:
+def cm_suspects(units: list) -> dict:
     """The units where a CM orbit, if there is one, costs a long proof: some fundamental
     D < 0 with |D| | N, D² ∤ N and χ·χ_D of conductor dividing N/|D| — the nebentypus of
     a theta series of Q(√D) of level N (common practice: θ_ψ has level |D|·N𝔪 and
     character χ_D·ψ|_Z).  Their CM proof runs to the Sturm bound of lcm(N, D²)
     (charforms._cm_discriminant); the other units prove or refute CM within Sturm(N) or
-    at the first inert a_p ≠ 0.  A superset of the expensive units: the bench samples
-    them as a stratum of their own."""
+    at the first inert a_p ≠ 0.  Returns unit ↦ the largest such bound.  A superset of
+    the expensive units: those with a bound above ``LONG_PROOF`` are sampled as a
+    stratum of their own."""
     sys.path.insert(0, str(ROOT))
     from math import gcd
 
+    from builder.arith import sturm_bound
     from builder.characters import character_orbits
     from builder.forms.unit import _fundamental_discriminants_dividing, kronecker
 
-    out = set()
+    out = {}
     for N, k, j, order in units:
         if order == 1:
             continue  # χ_D alone has conductor |D|, which divides N/|D| only if D² | N
@@ -103,8 +109,8 @@ def cm_suspects(units: list) -> set:
             if all(gcd(n, N) > 1 or (chi.exponent(n) == 0 and kronecker(D, n) == 1)
                    or (2 * chi.exponent(n) == order and kronecker(D, n) == -1)
                    for n in range(1 + M, N, M)):
-                out.add((N, k, j, order))
-                break
+                B = sturm_bound(N * D * D // gcd(N, D * D), k)
+                out[(N, k, j, order)] = max(B, out.get((N, k, j, order), 0))
     return out
 
 
@@ -150,45 +156,61 @@ def main(argv: list[str]) -> None:
         print(json.dumps(_unit(*map(int, argv[1].split(",")))))
         return
     count = int(argv[argv.index("--count") + 1]) if "--count" in argv else 60
-    cap = float(argv[argv.index("--cap") + 1]) if "--cap" in argv else 300.0
+    count_long = int(argv[argv.index("--count-long") + 1]) if "--count-long" in argv else 12
+    cap = float(argv[argv.index("--cap") + 1]) if "--cap" in argv else 600.0
     record = "--no-record" not in argv
     units = box_units()
+    bounds = cm_suspects(units)
+    long_units = sorted(u for u, b in bounds.items() if b > LONG_PROOF)
+    rest = sorted(set(units) - set(long_units))
     rng = random.Random(SEED)
-    sample = sorted(rng.sample(units, count))
+    strata = {"rest": (rest, sorted(rng.sample(rest, count))),
+              "long": (long_units, sorted(rng.sample(long_units, count_long)))}
     t0 = time.perf_counter()
-    timed: list[dict] = []
-    threads = [threading.Thread(target=_run_half, args=(h, cap, timed))
-               for h in (sample[0::2], sample[1::2])]
-    for t in threads:
-        t.start()
-    for t in threads:
-        t.join()
+    results: dict[str, list[dict]] = {}
+    for name, (_, sample) in strata.items():
+        timed: list[dict] = []
+        threads = [threading.Thread(target=_run_half, args=(h, cap, timed))
+                   for h in (sample[0::2], sample[1::2])]
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+        results[name] = timed
     wall = time.perf_counter() - t0
     beyond = beyond_lift(units)
-    refused = [x for x in timed if x.get("refused")]
-    timed = [x for x in timed if not x.get("refused")]
-    mean = statistics.mean(x["t"] for x in timed)
-    proj = mean * len(units) / 2
+    refused = [x for r in results.values() for x in r if x.get("refused")]
+    stats = {}
+    for name, timed in results.items():
+        ts = [x["t"] for x in timed if not x.get("refused")]
+        stats[name] = (len(strata[name][0]), statistics.mean(ts), statistics.median(ts),
+                       sum(1 for x in timed if x["capped"]))
+    proj = sum(size * mean for size, mean, _, _ in stats.values()) / 2
     trivial = sum(1 for u in units if u[2] == 0)
-    capped = sum(1 for x in timed if x["capped"])
+    capped = sum(c for *_, c in stats.values())
     print(f"box N·k² ≤ {BOX}: {len(units)} units ({trivial} trivial character), "
-          f"{len(beyond)} beyond the absolute lift; sample {count} ({len(refused)} refused): "
-          f"mean {mean:.2f} s, median {statistics.median(x['t'] for x in timed):.2f} s, "
-          f"{capped} capped at {cap:.0f} s → 2 workers ≥ {proj / 3600:.2f} h; sample wall "
-          f"{wall:.0f} s")
+          f"{len(beyond)} beyond the absolute lift, {len(long_units)} with a CM proof that may "
+          f"run past Sturm bound {LONG_PROOF}; "
+          + "; ".join(f"stratum {n}: {s[0]} units, sample {len(results[n])}, mean {s[1]:.2f} s, "
+                      f"median {s[2]:.2f} s" for n, s in stats.items())
+          + f"; {len(refused)} refused, {capped} capped at {cap:.0f} s → 2 workers "
+          f"{'≥ ' if capped else '≈ '}{proj / 3600:.2f} h; sample wall {wall:.0f} s")
     if record:
-        _write(units, timed, mean, proj, wall, trivial, cap, capped, beyond, refused, count)
+        _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refused)
 
 
-def _write(units, timed, mean, proj, wall, trivial, cap, capped, beyond, refused,
-           count) -> None:
+def _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refused) -> None:
     load = os.getloadavg()
+    timed = [x for r in results.values() for x in r if not x.get("refused")]
     slow = sorted(timed, key=lambda x: -x["t"])[:6]
     by_order: dict[str, list[float]] = {}
-    for x in timed:
+    for x in results["rest"]:
+        if x.get("refused"):
+            continue
         key = "1" if x["order"] == 1 else "2" if x["order"] == 2 else "3–6" if x[
             "order"] <= 6 else "> 6"
         by_order.setdefault(key, []).append(x["t"])
+    rest, long_ = stats["rest"], stats["long"]
     lines = [SECTION, "",
              f"Measured {date.today().isoformat()} on {platform.node()} ({os.cpu_count()} cores)"
              f", Python {platform.python_version()}, one thread per process; load average at "
@@ -200,21 +222,31 @@ def _write(units, timed, mean, proj, wall, trivial, cap, capped, beyond, refused
              "cannot be lifted with the primes ℓ ≡ 1 (mod m) below 2^21, e.g. "
              + ", ".join(f"{N}w{k}c{j}" for N, k, j, _ in beyond[:3])
              + "): they are computed when their new part is irreducible over Q(χ) and "
-             f"refused otherwise. A uniform sample of {count} units (seed {SEED}; "
-             f"{len(refused)} refused, left out of the mean) computed two at a time: mean "
-             f"{mean:.2f} s, "
-             f"median {statistics.median(x['t'] for x in timed):.2f} s per unit, sample wall "
-             f"{wall:.0f} s; each unit in a fresh process stopped after {cap:.0f} s "
-             f"({capped} of the sample were, counted as {cap:.0f} s). Projected box with 2 "
-             f"workers ≈ mean × units / 2 = **{proj / 3600:.2f} h**"
-             + (" (a lower bound: capped units)" if capped else "") + " (goal ≤ 8 h).", "",
-             "| character order | sample units | median s | mean s |", "|---|---|---|---|"]
+             "refused otherwise.", "",
+             "Two strata, sampled separately (seed "
+             f"{SEED}) and computed two at a time, each unit in a fresh process stopped after "
+             f"{cap:.0f} s: **long** = the {long_[0]} units where a CM orbit, if any, needs "
+             "a_p = 0 at every inert prime up to the Sturm bound of lcm(N, D²) > "
+             f"{LONG_PROOF} (some D < 0 with D² ∤ N and χ·χ_D of conductor dividing N/|D|: "
+             f"`cm_suspects`), **rest** = the other {rest[0]}. Stratum rest: "
+             f"{len(results['rest'])} units, mean {rest[1]:.2f} s, median {rest[2]:.2f} s; "
+             f"stratum long: {len(results['long'])} units, mean {long_[1]:.2f} s, median "
+             f"{long_[2]:.2f} s; {len(refused)} refused (left out), {capped} capped "
+             f"(counted as {cap:.0f} s); sample wall {wall:.0f} s. Projected box with 2 "
+             "workers ≈ (units_rest × mean_rest + units_long × mean_long) / 2 = "
+             f"**{proj / 3600:.2f} h**" + (" (a lower bound: capped units)" if capped else "")
+             + " (goal ≤ 8 h).", "",
+             "| stratum rest, character order | sample units | median s | mean s |",
+             "|---|---|---|---|"]
     for key in ("1", "2", "3–6", "> 6"):
         if key in by_order:
             ts = by_order[key]
             lines.append(f"| {key} | {len(ts)} | {statistics.median(ts):.2f} | "
                          f"{statistics.mean(ts):.2f} |")
-    lines += ["", "Slowest in the sample: " + ", ".join(
+    lines += ["", "Stratum long: " + ", ".join(
+        f"{x['N']}w{x['k']}c{x['j']} {x['t']:.1f} s" + (" capped" if x["capped"] else "")
+        for x in results["long"] if not x.get("refused")) + ".", "",
+        "Slowest overall: " + ", ".join(
         f"{x['N']}w{x['k']}c{x['j']} (order {x['order']}, dim new {x['dim_new']}) {x['t']:.1f} s"
         + (" capped" if x["capped"] else "")
         for x in slow) + ".", ""]
