@@ -79,3 +79,14 @@ def test_heilbronn_points_are_the_images_of_the_set(n, u, v, N):
                       strict=True))
     C, D = heilbronn_points(n, u, v, N)
     assert sorted(zip(C.tolist(), D.tolist(), strict=True)) == want
+
+
+def test_any_order_is_the_same_set():
+    # a Heilbronn sum does not depend on the order: the unsorted set of a large prime
+    # must be the sorted one as a multiset (common practice)
+    from builder.symbols.heilbronn import hecke_matrices, heilbronn_matrices_any_order
+
+    for n in (2053, 2089, 12, 2048):
+        want = sorted(zip(*(x.tolist() for x in hecke_matrices(n)), strict=True))
+        got = sorted(zip(*(x.tolist() for x in heilbronn_matrices_any_order(n)), strict=True))
+        assert got == want

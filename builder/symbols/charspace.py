@@ -28,7 +28,11 @@ import numpy as np
 
 from builder.characters import CharacterOrbit
 from builder.linalg_modp import matmul_mod
-from builder.symbols.heilbronn import hecke_matrices, heilbronn_points
+from builder.symbols.heilbronn import (
+    hecke_matrices,
+    heilbronn_matrices_any_order,
+    heilbronn_points,
+)
 from builder.symbols.manin import poly_action
 from builder.symbols.p1 import P1, p1
 from builder.symbols.space import poly_action_row
@@ -321,9 +325,11 @@ class CharSpace:
             return np.concatenate([self.images(np.array([x], dtype=np.int64), n)
                                    for n in ns])
         ell = self.ell
-        idx, coefs, lam = _symbol_hecke_block(self.N, self.k, ell if self.k > 2 else 0, x,
+        exact = (2 * max(ns) + 1) ** (self.k - 2) < (1 << 62)  # int64 polynomial action
+        idx, coefs, lam = _symbol_hecke_block(self.N, self.k, 0 if exact else ell, x,
                                               tuple(ns))
-        weights = self._float_values[lam] if coefs is None else coefs * self.values[lam] % ell
+        weights = (self._float_values[lam] if coefs is None
+                   else coefs % ell * self.values[lam] % ell)
         W = _bincount_mod(idx, weights, len(ns) * self.nsym, ell)
         return np.mod(matmul_mod(W.reshape(len(ns), self.nsym), self._dense_coords, ell), ell)
 
@@ -580,8 +586,9 @@ def _symbol_hecke_terms(N: int, k: int, ell: int, x: int,
     """T_n(x) before the character: (symbol, coefficient mod ℓ, λ) with
     T_n(x) = Σ coefficient·χ(λ)·[symbol] (Merel's Heilbronn set, as ``CharSpace._terms``).
     Nothing here depends on χ, so the Galois conjugates χ^a of a unit (which share ℓ)
-    and its orbits share one Heilbronn sum per (x, n) instead of one each; in weight 2
-    nothing depends on ℓ either (callers pass ℓ = 0), so all primes share it too."""
+    and its orbits share one Heilbronn sum per (x, n) instead of one each.  With ℓ = 0
+    the coefficients are exact int64 (callers pass 0 when (2n + 1)^(k−2) < 2^62, always in
+    weight 2, where they are all 1), so all primes ℓ share the terms too."""
     P = p1(N)
     psi, w = len(P), k - 2
     i, j = divmod(x, psi)
@@ -591,18 +598,21 @@ def _symbol_hecke_terms(N: int, k: int, ell: int, x: int,
         ok = t >= 0
         return (t[ok].astype(np.int32), np.ones(int(ok.sum()), dtype=np.int32),
                 lam[ok].astype(np.int32))
-    a, b, c, d = (np.asarray(t, dtype=np.int64) for t in hecke_matrices(n))
+    a, b, c, d = (np.asarray(t, dtype=np.int64) for t in heilbronn_matrices_any_order(n))
     t, lam = P.index_scalar(u * a + v * c, u * b + v * d)
     ok = t >= 0
     t, lam = t[ok], lam[ok]
-    A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, w, ell)
+    A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, w, ell or None)
+    if A.dtype == object:
+        raise ValueError(f"T_{n} on weight {k}: the exact action needs ℓ")  # pragma: no cover
     syms, coefs, lams = [], [], []
     for m in range(w + 1):
         sel = A[:, m] != 0
         syms.append(m * psi + t[sel])
         coefs.append(A[sel, m])
         lams.append(lam[sel])
-    return tuple(np.concatenate(z).astype(np.int32) for z in (syms, coefs, lams))
+    return (np.concatenate(syms).astype(np.int32), np.concatenate(coefs).astype(np.int64),
+            np.concatenate(lams).astype(np.int32))
 
 
 @lru_cache(maxsize=8)  # emptied between units (builder.symbols.space.clear_caches)

@@ -75,7 +75,8 @@ def _cremona_cached(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndar
     return _cremona_prime(p)
 
 
-def _cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _cremona_prime(p: int, ordered: bool = True
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Heilbronn matrices of determinant p for an odd prime p from continued fractions.
 
     [Cr] §2.4: [[1, 0], [0, p]] together with, for every r with |r| < p/2, the
@@ -108,12 +109,24 @@ def _cremona_prime(p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarr
         y1, y2 = y2, q * y2 - y1
         step += 1
         parts.append((idx, step, x1, x2, y1, y2))
-    key = np.concatenate([i * (step + 1) + t for i, t, *_ in parts])
-    order = np.argsort(key, kind="stable")
     cols = [np.concatenate([np.array([v], dtype=np.int64)] + [part[2 + c] for part in parts])
             for c, v in enumerate((1, 0, 0, p))]
-    order = np.concatenate([[0], order + 1])
+    if not ordered:  # a sum over the set does not care (``heilbronn_matrices_any_order``)
+        return cols[0], cols[1], cols[2], cols[3]
+    key = np.concatenate([i * (step + 1) + t for i, t, *_ in parts])
+    order = np.concatenate([[0], np.argsort(key, kind="stable") + 1])
     return cols[0][order], cols[1][order], cols[2][order], cols[3][order]
+
+
+def heilbronn_matrices_any_order(n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                  np.ndarray]:
+    """The set of ``hecke_matrices`` (n) in some order: for the large primes of a CM
+    proof, built without sorting into the order of the sequential expansion."""
+    from builder.arith import is_prime
+
+    if n > 2 and n % 2 and n >= CACHED_BELOW and is_prime(n):
+        return _cremona_prime(n, ordered=False)
+    return hecke_matrices(n)
 
 
 def heilbronn_points(n: int, u: int, v: int, N: int) -> tuple[np.ndarray, np.ndarray]:

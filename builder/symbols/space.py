@@ -30,7 +30,11 @@ from builder.arith import check_index, check_level, check_sign, check_weight, fa
 from builder.linalg import left_kernel, pivots
 from builder.linalg_modp import QMat, _as_int, exact_rref
 from builder.symbols.cusps import boundary_classes
-from builder.symbols.heilbronn import hecke_matrices, heilbronn_points
+from builder.symbols.heilbronn import (
+    hecke_matrices,
+    heilbronn_matrices_any_order,
+    heilbronn_points,
+)
 from builder.symbols.manin import ManinPresentation, poly_action
 from builder.symbols.p1 import p1
 
@@ -560,7 +564,7 @@ class SymbolSpace:
                 coefs.append(np.ones(len(ok), dtype=np.int64))
                 load += int(np.sum(indptr[t[ok] + 1] - indptr[t[ok]]))
             else:
-                a, b, c, d = hecke_matrices(check_index(n))
+                a, b, c, d = heilbronn_matrices_any_order(check_index(n))
                 t = self.P1.index(u * a + v * c, u * b + v * d)
                 ok = np.nonzero(t >= 0)[0]
                 A = poly_action_row(a[ok], b[ok], c[ok], d[ok], i, self.w)
