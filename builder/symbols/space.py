@@ -753,6 +753,10 @@ def poly_action_row(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: np.ndarray, 
     A[h, m] = coefficient of X^m Y^(w−m) in (a_h X + b_h Y)^i (c_h X + d_h Y)^(w−i) —
     exactly (int64 when (2·max|entry|)^w < 2^62, Python integers otherwise), or modulo
     ℓ < 2^21 when ``ell`` is given (int64, reduced at every step)."""
+    if w == 1 and np.asarray(a).dtype != object:  # aX + bY or cX + dY: the entries
+        pair = (np.asarray(d), np.asarray(c)) if i == 0 else (np.asarray(b), np.asarray(a))
+        A = np.stack(pair, axis=1).astype(np.int64)
+        return A if ell is None else np.mod(A, ell)
     if ell is None:
         top = int(max((np.max(np.abs(x), initial=0) for x in (a, b, c, d)), default=0))
         dtype = np.int64 if (2 * top + 1) ** w < (1 << 62) else object
