@@ -1023,14 +1023,17 @@ def _norm_poly(rel: list[list[int]], m: int, conj: list[int], rho: int,
 
     deg = d * len(conj)
     need = 2 * (1 + rho) ** deg + 1
+    n = len(conj)
+    R = np.array(rel, dtype=object).reshape(len(rel), n)
     res, mods, prod = [], [], 1
     for ell in primes_one_mod(m):
         w = root_of_unity(ell, m) if m > 1 else 1
+        # σ_a of every coefficient at once: (coordinates mod ℓ) · (w^(a·i))_{i, a}
+        Wm = np.array([[pow(w, a * i, ell) for a in conj] for i in range(n)], dtype=np.float64)
+        E = np.mod(matmul_mod(np.mod(R, ell).astype(np.float64), Wm, ell), ell).astype(np.int64)
         P = flint.nmod_poly([1], ell)
-        for a in conj:
-            pw = [pow(w, a * i, ell) for i in range(len(conj))]
-            P *= flint.nmod_poly([sum(c * x for c, x in zip(cj, pw, strict=True)) % ell
-                                  for cj in rel], ell)
+        for col in E.T:
+            P *= flint.nmod_poly(col.tolist(), ell)
         res.append([int(c) for c in P.coeffs()])
         mods.append(ell)
         prod *= ell
