@@ -104,11 +104,6 @@ def _poly_at(f: flint.nmod_poly, A: np.ndarray, ell: int) -> np.ndarray:
     return R
 
 
-def _left_kernel(A: np.ndarray, ell: int) -> np.ndarray:
-    """Rows spanning {x : x·A = 0} modulo ℓ."""
-    return _left_kernel_cols(A, ell)[0]
-
-
 def _left_kernel_cols(A: np.ndarray, ell: int) -> tuple[np.ndarray, list[int]]:
     """(K, cols): rows K spanning {x : x·A = 0} modulo ℓ, K[:, cols] = identity."""
     K, free = _kernel_mod(np.ascontiguousarray(A.T), ell)
@@ -1148,9 +1143,9 @@ def _power_sums(f: flint.nmod_poly, ell: int) -> list[int]:
     return ps
 
 
-def _trace_mod(y: flint.nmod_poly, f: flint.nmod_poly, ell: int, ps=None) -> int:
+def _trace_mod(y: flint.nmod_poly, f: flint.nmod_poly, ell: int) -> int:
     """Tr of y (reduced modulo f) in F_ℓ[x]/(f): Σ y_j·(power sum j)."""
-    ps = _power_sums(f, ell) if ps is None else ps
+    ps = _power_sums(f, ell)
     return sum(int(ci) * ps[j] for j, ci in enumerate(y.coeffs())) % ell
 
 
