@@ -85,11 +85,11 @@ def cm_suspects(units: list) -> dict:
     """The units where a CM orbit, if there is one, costs a long proof: some fundamental
     D < 0 with |D| | N, D² ∤ N and χ·χ_D of conductor dividing N/|D| — the nebentypus of
     a theta series of Q(√D) of level N (common practice: θ_ψ has level |D|·N𝔪 and
-    character χ_D·ψ|_Z).  Their CM proof runs to the Sturm bound of lcm(N, D²)
-    (charforms._cm_discriminant); the other units prove or refute CM within Sturm(N) or
-    at the first inert a_p ≠ 0.  Returns unit ↦ the largest such bound.  A superset of
-    the expensive units: those with a bound above ``LONG_PROOF`` are sampled as a
-    stratum of their own."""
+    character χ_D·ψ|_Z).  Their CM proof used to run to the Sturm bound of lcm(N, D²);
+    since the Hecke-character count (builder.forms.hecke_characters) it stops after a
+    few inert primes, and the stratum is kept to show that it no longer costs more.
+    Returns unit ↦ the largest such bound; those with a bound above ``LONG_PROOF`` are
+    sampled as a stratum of their own."""
     sys.path.insert(0, str(ROOT))
     from math import gcd
 

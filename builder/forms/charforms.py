@@ -906,37 +906,29 @@ def _pow_K(K: NumberField, x, e: int):
 
 
 def _cm_discriminant(U: CharUnit, o: CharOrbit) -> int | None:
-    """The CM discriminant D < 0 (|D| | N, fundamental) of the orbit, or None: a_p = 0 for
-    every prime p ≤ Sturm(lcm(N, D²), k) with (D/p) = −1, as for the trivial character
-    (builder.forms.unit.cm_discriminant), each zero decided exactly (ap_is_zero).  All
-    orbits of the unit are decided together, prime by prime (``_cm_all``)."""
+    """The CM discriminant D < 0 (|D| | N, fundamental) of the orbit, or None (``_cm_all``)."""
     return _cm_all(U)[id(o)]
 
 
 def _cm_all(U: CharUnit) -> dict[int, int | None]:
-    """id(orbit) ↦ its CM discriminant or None, for every orbit of U: for each D (in the
-    order of ``_fundamental_discriminants_dividing``) the orbits still without one walk
-    the inert primes together, so that a long proof (a Sturm bound of 10⁵ when D² ∤ N)
-    computes one Heilbronn sum per prime for all its CM orbits, not one per orbit."""
-    from builder.forms.unit import _fundamental_discriminants_dividing, kronecker
+    """id(orbit) ↦ its CM discriminant or None, for every orbit of U: for each D the
+    number of newforms with CM by Q(√D) is counted from Hecke characters, then the orbits
+    that carry them are found and certified by ``cm_orbits`` (builder.forms.hecke_characters)."""
+    from builder.forms.hecke_characters import cm_newform_count, cm_orbits
+    from builder.forms.unit import _fundamental_discriminants_dividing
 
     if "_cm" in U.__dict__:
         return U.__dict__["_cm"]
     out: dict[int, int | None] = {id(o): None for o in U.orbits}
     undecided = list(U.orbits)
     for D in _fundamental_discriminants_dividing(U.N):
-        if not undecided:
-            break
-        L = U.N * D * D // gcd(U.N, D * D)
-        alive = list(undecided)
-        for p in iter_primes(sturm_bound(L, U.k)):
-            if kronecker(D, p) == -1:
-                alive = [o for o in alive if U.ap_is_zero(o, p)]
-                if not alive:
-                    break
-        for o in alive:
-            out[id(o)] = D
-        undecided = [o for o in undecided if out[id(o)] is None]
+        count = cm_newform_count(D, U.N, U.k, U.chi.order, U.chi.exponent)
+        if count:
+            alive = cm_orbits(U.N, U.k, D, undecided, count, U.ap_is_zero,
+                              lambda o: o.dim // U.phi_m)
+            for o in alive:
+                out[id(o)] = D
+            undecided = [o for o in undecided if out[id(o)] is None]
     U.__dict__["_cm"] = out
     return out
 

@@ -67,7 +67,8 @@ def _compute(N: int, k: int, params: Params, t0: float) -> SpaceRecord:
     orbits = V.orbits()
     eigs = [EigenForm(V, o) for o in orbits]
     traces = eigen_system(V).traces(params.trace_bound) if eigs else []
-    forms = [_orbit_data(E, t, params) for E, t in zip(eigs, traces, strict=True)]
+    cms = cm_discriminants(eigs)
+    forms = [_orbit_data(E, t, cm, params) for E, t, cm in zip(eigs, traces, cms, strict=True)]
     forms.sort(key=lambda f: f["_key"])
     records = []
     for i, f in enumerate(forms, start=1):
@@ -107,7 +108,7 @@ def _params_dict(p: Params) -> dict:
 # -- one orbit ------------------------------------------------------------------
 
 
-def _orbit_data(E: EigenForm, traces: list[int], params: Params) -> dict:
+def _orbit_data(E: EigenForm, traces: list[int], cm: int | None, params: Params) -> dict:
     orbit = E.orbit
     N, k, d = E.N, E.k, orbit.dim
     B = params.trace_bound
@@ -121,7 +122,6 @@ def _orbit_data(E: EigenForm, traces: list[int], params: Params) -> dict:
     for s in signs.values():
         fricke *= s
     root = (-1) ** (k // 2) * fricke
-    cm = cm_discriminant(E)
     lzero, ratio = _lvalue(E, root)
     ptraces = [traces[p - 1] for p in primes_up_to(B)]
     return {
@@ -255,6 +255,27 @@ def cm_discriminant(E: EigenForm) -> int | None:
     return None
 
 
+def cm_discriminants(eigs: list[EigenForm]) -> list[int | None]:
+    """The CM discriminant (or None) of every orbit of one space, all orbits together: for
+    each D the number of CM newforms by Q(√D) is counted from Hecke characters and the
+    orbits carrying them are found and certified by builder.forms.hecke_characters.cm_orbits
+    (usually after a few inert primes instead of the Sturm bound of ``cm_discriminant``)."""
+    from builder.forms.hecke_characters import cm_newform_count, cm_orbits
+
+    out: dict[int, int | None] = {id(E): None for E in eigs}
+    if not eigs:
+        return []
+    N, k = eigs[0].N, eigs[0].k
+    undecided = list(eigs)
+    for D in _fundamental_discriminants_dividing(N):
+        count = cm_newform_count(D, N, k, 1, lambda n: 0)
+        if count:
+            for E in cm_orbits(N, k, D, undecided, count, _ap_is_zero, lambda E: E.d):
+                out[id(E)] = D
+            undecided = [E for E in undecided if out[id(E)] is None]
+    return [out[id(E)] for E in eigs]
+
+
 def _ap_is_zero(E: EigenForm, p: int) -> bool:
     """a_p = 0, decided exactly: Tr(a_p²) = 0 (K totally real), |Tr(a_p²)| ≤ 4d·p^(k−1)."""
     bound = 4 * E.d * p ** (E.k - 1)
@@ -300,5 +321,6 @@ def _lvalue(E: EigenForm, root: int) -> tuple[bool | None, str | None]:
 
 
 __all__ = [
-    "compute", "hecke_traces", "all_traces", "exact_an", "cm_discriminant", "kronecker", "is_prime",
+    "compute", "hecke_traces", "all_traces", "exact_an", "cm_discriminant", "cm_discriminants",
+    "kronecker", "is_prime",
 ]
