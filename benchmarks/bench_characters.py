@@ -1,6 +1,6 @@
 """Benchmark (issue 7): every character orbit in the box N·k² ≤ 4000 — how long with 2 workers?
 
-    python benchmarks/bench_characters.py               # 60 + 12 units, records
+    python benchmarks/bench_characters.py               # 240 + 40 units, records
     python benchmarks/bench_characters.py --count 20 --count-long 4 --cap 120 --no-record
 
 The box: every weight k ≥ 2 and level N with N·k² ≤ 4000, every Galois orbit of Dirichlet
@@ -8,11 +8,13 @@ characters mod N with χ(−1) = (−1)^k (the trivial one included), full units
 default bounds of a job (trace_bound 1000, exact a_p to 100 for orbits of dimension ≤ 20).
 Each unit runs in a fresh process, timed after the level-free Heilbronn matrices for the
 trace bound are built (a worker builds them once, for all its units).
-The units are split in two strata — those whose CM proof may have to run to a large
-Sturm bound (``cm_suspects``), and the rest — and a uniform random sample of each (fixed
+The units are split in two strata — those whose CM proof could run to a large Sturm
+bound (``cm_suspects``), and the rest — and a uniform random sample of each (fixed
 seed) is computed by two processes at once, as the two workers of a real run share the
 machine; Σ units_s × mean_s / 2 projects the wall time of the whole box with 2 workers
-(stratified sampling: the few long units no longer swing a small uniform sample).
+(stratified sampling: the few long units no longer swing a small uniform sample), and
+(Σ units_s² × var_s / n_s)^(1/2) / 2 is its standard error: a few slow units of large
+character order carry much of the mean, so the sample is large and the error printed.
 Numbers go to the "## Characters (issue 7)" section of benchmarks/README.md with the
 machine and the date.
 """
@@ -155,8 +157,8 @@ def main(argv: list[str]) -> None:
     if argv and argv[0] == "--unit":
         print(json.dumps(_unit(*map(int, argv[1].split(",")))))
         return
-    count = int(argv[argv.index("--count") + 1]) if "--count" in argv else 60
-    count_long = int(argv[argv.index("--count-long") + 1]) if "--count-long" in argv else 12
+    count = int(argv[argv.index("--count") + 1]) if "--count" in argv else 240
+    count_long = int(argv[argv.index("--count-long") + 1]) if "--count-long" in argv else 40
     cap = float(argv[argv.index("--cap") + 1]) if "--cap" in argv else 600.0
     record = "--no-record" not in argv
     units = box_units()
@@ -184,22 +186,27 @@ def main(argv: list[str]) -> None:
     for name, timed in results.items():
         ts = [x["t"] for x in timed if not x.get("refused")]
         stats[name] = (len(strata[name][0]), statistics.mean(ts), statistics.median(ts),
-                       sum(1 for x in timed if x["capped"]))
-    proj = sum(size * mean for size, mean, _, _ in stats.values()) / 2
+                       sum(1 for x in timed if x["capped"]), statistics.variance(ts) / len(ts))
+    proj = sum(size * mean for size, mean, *_ in stats.values()) / 2
+    # the standard error of the stratified estimate (sampling without the finite correction)
+    err = sum(size * size * v for size, _, _, _, v in stats.values()) ** 0.5 / 2
     trivial = sum(1 for u in units if u[2] == 0)
-    capped = sum(c for *_, c in stats.values())
+    capped = sum(s[3] for s in stats.values())
     print(f"box N·k² ≤ {BOX}: {len(units)} units ({trivial} trivial character), "
           f"{len(beyond)} beyond the absolute lift, {len(long_units)} with a CM proof that may "
           f"run past Sturm bound {LONG_PROOF}; "
           + "; ".join(f"stratum {n}: {s[0]} units, sample {len(results[n])}, mean {s[1]:.2f} s, "
                       f"median {s[2]:.2f} s" for n, s in stats.items())
           + f"; {len(refused)} refused, {capped} capped at {cap:.0f} s → 2 workers "
-          f"{'≥ ' if capped else '≈ '}{proj / 3600:.2f} h; sample wall {wall:.0f} s")
+          f"{'≥ ' if capped else '≈ '}{proj / 3600:.2f} h ± {err / 3600:.2f} h (one standard "
+          f"error); sample wall {wall:.0f} s")
     if record:
-        _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refused)
+        _write(units, results, stats, (proj, err), wall, trivial, cap, capped, beyond, refused)
 
 
-def _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refused) -> None:
+def _write(units, results, stats, projection, wall, trivial, cap, capped, beyond,
+           refused) -> None:
+    proj, err = projection
     load = os.getloadavg()
     timed = [x for r in results.values() for x in r if not x.get("refused")]
     slow = sorted(timed, key=lambda x: -x["t"])[:6]
@@ -225,8 +232,9 @@ def _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refu
              "refused otherwise.", "",
              "Two strata, sampled separately (seed "
              f"{SEED}) and computed two at a time, each unit in a fresh process stopped after "
-             f"{cap:.0f} s: **long** = the {long_[0]} units where a CM orbit, if any, needs "
-             "a_p = 0 at every inert prime up to the Sturm bound of lcm(N, D²) > "
+             f"{cap:.0f} s: **long** = the {long_[0]} units where a CM orbit, if any, needed "
+             "(before the Hecke-character count) a_p = 0 at every inert prime up to the "
+             "Sturm bound of lcm(N, D²) > "
              f"{LONG_PROOF} (some D < 0 with D² ∤ N and χ·χ_D of conductor dividing N/|D|: "
              f"`cm_suspects`), **rest** = the other {rest[0]}. Stratum rest: "
              f"{len(results['rest'])} units, mean {rest[1]:.2f} s, median {rest[2]:.2f} s; "
@@ -235,7 +243,8 @@ def _write(units, results, stats, proj, wall, trivial, cap, capped, beyond, refu
              f"(counted as {cap:.0f} s); sample wall {wall:.0f} s. Projected box with 2 "
              "workers ≈ (units_rest × mean_rest + units_long × mean_long) / 2 = "
              f"**{proj / 3600:.2f} h**" + (" (a lower bound: capped units)" if capped else "")
-             + " (goal ≤ 8 h).", "",
+             + f", standard error of the stratified estimate ± {err / 3600:.2f} h "
+             "(goal ≤ 8 h).", "",
              "| stratum rest, character order | sample units | median s | mean s |",
              "|---|---|---|---|"]
     for key in ("1", "2", "3–6", "> 6"):
