@@ -361,6 +361,63 @@ def test_relative_split_never_claims_a_reducible_new_part(N, k, j):
     assert len(U.orbits) >= 2 and not any(o.relative for o in U.orbits)
 
 
+@pytest.mark.parametrize("N,k,j,cuts", [
+    (86, 2, 4, {"W"}), (90, 2, 4, {"W"}), (114, 2, 8, {"W"}), (62, 4, 3, {"W"}),
+    (66, 4, 4, {"W"}), (21, 3, 6, {"CM"}), (49, 3, 3, {"CM"}), (39, 2, 11, {"CM"}),
+    (63, 2, 4, {"W", "CM"})])
+def test_split_into_pieces_agrees_with_the_absolute_split(N, k, j, cuts):
+    """The split over Q(χ) into pieces, forced on units the absolute factorisation also
+    splits: the eigenspaces of the W_Q (Q ∥ N, χ trivial modulo Q; W_Q commutes with the
+    T_q, q ∤ N, and W_Q² = χ̄_{N/Q}(Q)·Q^(k−2) on newforms, [AL78] §1) and the CM
+    subspaces (a_p = 0 for p inert, Ribet §3; as many newforms as Hecke characters) —
+    the same orbits (absolute degrees) with the same traces."""
+    chi = character_orbits(N)[j]
+    U, V = CharUnit(N, k, chi), CharUnit(N, k, chi)
+    found = V._irreducible_pieces()
+    assert found is not None and len(found[1]) >= 2
+    V.__dict__["split"] = found
+    assert all(o.relative and o.piece for o in V.orbits)
+    assert {e[0] for o in V.orbits for e in o.piece} == cuts
+    mine = sorted((o.dim, V.traces(o, 40)) for o in V.orbits)
+    assert mine == sorted((o.dim, U.traces(o, 40)) for o in U.orbits)
+
+
+def test_unit_beyond_the_absolute_method_split_by_atkin_lehner():
+    """S_2(886, χ), χ of conductor 443 and order 221: beyond the absolute lift (192·37
+    roots) and reducible over Q(χ) — a_2 = ±√χ̄_443(2) on the new part ([AL78] §2, [Mi]
+    Thm 4.6.17), both signs in Q(χ) as 221 is odd — so split by W_2 into two pieces, each
+    irreducible over Q(χ).  Their traces against the trace formula with character [CS]
+    Thm 12.4.11 on the new part, Tr^new_886 = Tr_886 − 2·Tr_443 ([Li]), n ≤ 12 odd, 443 ∤ n."""
+    chi = character_orbits(886)[6]
+    assert (chi.order, chi.conductor) == (221, 443)
+    U = CharUnit(886, 2, chi)
+    with pytest.raises(ArithmeticError, match="beyond the absolute method"):
+        U.check_liftable()
+    assert U._irreducible_combo() is None
+    orbits = U.orbits
+    assert sorted(o.dim for o in orbits) == [192 * 18, 192 * 19]
+    assert [e[:2] for e in orbits[0].piece] == [("W", 2)]
+    traces = [U.traces(o, 12) for o in orbits]
+    chi443 = next(c for c in character_orbits(443) if c.order == 221)
+    for n in range(1, 13, 2):
+        new = (trace_hecke_char(n, (886, 221, chi.exps), 2).trace()
+               - 2 * trace_hecke_char(n, (443, 221, _restricted(chi, chi443)), 2).trace())
+        assert sum(t[n - 1] for t in traces) == new, n
+
+
+def _restricted(chi, target) -> tuple:
+    """The exponents of the character mod 443 that χ mod 886 is induced from: the member
+    of ``target``'s Galois orbit taking χ's values (target.exps scaled by a unit)."""
+    M = target.modulus
+    for a in range(1, target.order):
+        if gcd(a, target.order) != 1:
+            continue
+        exps = tuple(-1 if e < 0 else e * a % target.order for e in target.exps)
+        if all(exps[n % M] == chi.exps[n] for n in range(chi.modulus) if chi.exps[n] >= 0):
+            return exps
+    raise AssertionError("no conjugate matches")
+
+
 def test_large_unit_split_over_q_chi_against_the_trace_formula():
     """S_2(1000, χ), χ primitive of order 100 (absolute degree 40·148 = 5920): T_3 alone
     has a square relative charpoly (it cannot separate f from a twist f ⊗ ψ with ψ(3) =

@@ -1,4 +1,4 @@
-"""Hecke characters of imaginary quadratic fields and the CM count (builder/forms/hecke_characters.py).
+"""Hecke characters of imaginary quadratic fields, the CM count (forms/hecke_characters.py).
 
 Sources:
 [Co93] H. Cohen, A Course in Computational Algebraic Number Theory, Springer (1993):
@@ -62,7 +62,7 @@ def test_ideals_of_norm_count_and_norm(D):
         assert len(ideals) == sum(kronecker(D, d) for d in range(1, n + 1) if n % d == 0)
         for fac in ideals:
             I = (1, 0, 1)
-            for P, nP, e in fac:
+            for P, _, e in fac:
                 for _ in range(e):
                     I = O.ideal_mul(I, P)
             assert I[0] * I[2] == n
@@ -125,8 +125,8 @@ def test_count_agrees_with_the_sturm_walk_with_character(N, k, j):
 
 @pytest.mark.parametrize("k", [2, 4, 6])
 def test_count_agrees_with_the_sturm_walk_trivial_character(k):
-    from builder.forms.newspace import NewSpace
     from builder.forms.eigen import EigenForm
+    from builder.forms.newspace import NewSpace
     from builder.forms.unit import _ap_is_zero
     from builder.symbols.space import cuspidal_space
 

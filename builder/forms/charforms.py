@@ -20,7 +20,11 @@ Everything is computed modulo primes ℓ ≡ 1 (mod m), < 2^21, for every conjug
    Above absolute degree ``RELATIVE_ABOVE`` the new part is first tested for
    irreducibility over Q(χ) instead, from the factorisations of its relative charpoly
    modulo the degree-one primes 𝔩 above one or two ℓ (``_irreducible_combo``): if it is,
-   the unit is one orbit and no absolute polynomial is lifted (none is stored).
+   the unit is one orbit and no absolute polynomial is lifted (none is stored).  If it is
+   not, the new part is cut by the W_Q whose
+   eigenvalues ±Q^((k−2)/2)·ζ_m^t lie in Q(χ) (``_irreducible_pieces``) and each joint
+   eigenspace, Galois-stable over Q(χ), is tested the same way: irreducible pieces are the
+   orbits; a unit where some piece is not is refused.
 3. **Eigen-functionals.**  For an orbit (F, the operator T_q whose charpoly it is) and a
    conjugate a: f_a = gcd(F mod ℓ, charpoly_a) is its relative factor; the functionals of
    the orbit are the kernel of f_a(T_q^t) on M*, cut further by g(T_{q'}^t) (g the
@@ -207,12 +211,16 @@ class _Conj:
 class CharOrbit:
     """An absolute Galois orbit: the irreducible factor F (degree d) of the absolute
     characteristic polynomial of the unit's splitting operator T (``CharUnit.combo``) —
-    or, with ``poly = None``, the whole new part when it is irreducible over Q(χ)
-    (``CharUnit.split``: F is then never lifted; ``dim`` = φ(m)·dim_new)."""
+    or, with ``poly = None``, a *relative* orbit: the whole new part, or its joint
+    eigenspace ``piece`` of Atkin–Lehner operators, when that is irreducible over Q(χ)
+    (``CharUnit.split``: F is then never lifted; ``dim`` = φ(m)·its dimension).
+    ``piece``: the cuts that define it (``CharUnit._piece_rows``)."""
 
-    def __init__(self, poly: flint.fmpz_poly | None, dim: int | None = None) -> None:
+    def __init__(self, poly: flint.fmpz_poly | None, dim: int | None = None,
+                 piece: tuple = ()) -> None:
         self.poly = poly
         self._dim = dim
+        self.piece = piece
 
     @property
     def dim(self) -> int:
@@ -415,6 +423,9 @@ class CharUnit:
             combo = self._irreducible_combo()
             if combo is not None:
                 return combo, [CharOrbit(None, self.phi_m * self.dim_new)]
+            found = self._irreducible_pieces()
+            if found is not None:
+                return found
         self.check_liftable()
         ell = next(self.primes())
         skipped: list[tuple] = []
@@ -452,7 +463,7 @@ class CharUnit:
         if key in cache:
             return cache[key]
         if orbit.relative:
-            cache[key] = self._rows_whole(ell)
+            cache[key] = self._rows_relative(ell, orbit.piece)
             return cache[key]
         combo = self.split[0]
         F = orbit.poly
@@ -479,18 +490,161 @@ class CharUnit:
         cache[key] = out
         return out
 
-    def _rows_whole(self, ell: int) -> dict | None:
-        """``_rows`` for the whole new part (a relative orbit): f_a = charpoly of T on
-        V(χ^a), W_f = V; None if some f_a is not squarefree modulo ℓ."""
+    def _rows_relative(self, ell: int, piece: tuple, combo: tuple | None = None) -> dict | None:
+        """``_rows`` for a relative orbit: W_f = the new part V(χ^a), or its joint
+        eigenspace ``piece`` (``_piece_rows``), f_a = charpoly of T on it; None if some
+        f_a is not squarefree modulo ℓ or ℓ is bad for the piece."""
+        combo = combo or self.split[0]
         out = {}
         for a in self.conjugates:
             st = self.conj(ell, a)
-            A = st.combo(self.split[0])
-            fa = _charpoly_mod(A, ell)
+            A = st.combo(combo)
+            Wf, wpiv = (st.V, st.piv) if not piece else self._piece_rows(st, piece, combo)
+            if Wf is None:
+                return None
+            fa = _charpoly_mod(_restrict_rows(Wf, wpiv, st.combo_full(combo), ell)
+                               if piece else A, ell)
             if fa.gcd(fa.derivative()).degree() != 0:
                 return None
-            out[a] = (fa, A, st.V, st.piv)
+            out[a] = (fa, A, Wf, wpiv)
         return out
+
+    # -- relative pieces: Atkin–Lehner eigenspaces of the new part --------------------------------
+    def _al_roots(self) -> list[tuple[int, int]]:
+        """(Q, t) for the Q ∥ N with χ trivial modulo Q whose W_Q has its eigenvalues
+        ±Q^((k−2)/2)·ζ_m^t in Q(χ): W_Q² = χ̄_{N/Q}(Q)·Q^(k−2) on the new part ([AL78] §1),
+        so they are when k is even or Q a square, and χ̄_{N/Q}(Q) = ζ_m^(−e) is a square in
+        μ_m (m odd, or e even): 2t ≡ −e (mod m)."""
+        m, out = self.chi.order, []
+        for p in al_primes(self.N, self.chi):
+            Q = p ** dict(factor(self.N))[p]
+            if self.k % 2 and isqrt(Q) ** 2 != Q:
+                continue
+            R = self.N // Q
+            n = next(n for n in range(1, self.N * Q + 1) if n % R == Q % R and n % Q == 1 % Q)
+            e = self.chi.exponent(n)
+            if m % 2:
+                out.append((Q, (-e * pow(2, -1, m)) % m))
+            elif e % 2 == 0:
+                out.append((Q, (-e // 2) % m))
+        return out
+
+    def _piece_rows(self, st: _Conj, piece: tuple, combo: tuple) -> tuple:
+        """(rows, pivots) of the piece of V(χ^a) mod ℓ, cut entry by entry:
+        ("W", Q, t, sign): ker(W_Q − σ_a(λ)), λ = sign·Q^((k−2)/2)·ζ_m^t ↦
+        sign·Q^((k−2)/2)·ω^(a·t); ("CM", D, True): ⋂ ker T_p over the first ``CM_CUT``
+        primes p ∤ N inert in Q(√D); ("CM", D, False): its complement ker h(T), h the
+        charpoly of T on the piece over that of the kernel.  (None, None) when ℓ | 2Q or
+        the two parts of a CM cut are not coprime.  For ℓ ∤ 2Q the W_Q-eigenspaces mod ℓ
+        are the reductions of the exact ones (the projectors (W_Q ± λ)/(±2λ) are
+        ℓ-integral); the CM kernels only can be too big, which ``_irreducible_pieces``
+        rules out by the count of CM newforms."""
+        from builder.characters import root_of_unity
+        from builder.forms.unit import kronecker
+
+        ell, M = st.ell, st.M
+        w = root_of_unity(ell, self.chi.order) if self.chi.order > 1 else 1
+        Wf, wpiv = st.V, st.piv
+        for entry in piece:
+            if entry[0] == "W":
+                _, Q, t, sign = entry
+                if (2 * Q) % ell == 0:
+                    return None, None
+                lam = sign * isqrt(Q ** (self.k - 2)) * pow(w, st.a * t, ell) % ell
+                W = np.stack([M.atkin_lehner_of_symbol(x, Q) for x in M.free])
+                A = np.mod(_restrict_rows(Wf, wpiv, W, ell) - lam * np.eye(Wf.shape[0]), ell)
+                K, kcols = _left_kernel_cols(A, ell)
+                Wf, wpiv = _product_basis(K, kcols, Wf, wpiv, ell)
+                continue
+            _, D, inside = entry
+            In, ipiv = Wf, wpiv
+            inert = (p for p in iter_primes(10**6) if self.N % p and kronecker(D, p) == -1)
+            for _, p in zip(range(CM_CUT), inert, strict=False):
+                if In.shape[0] == 0:
+                    break
+                K, kcols = _left_kernel_cols(_restrict_rows(In, ipiv, M.hecke(p), ell), ell)
+                In, ipiv = _product_basis(K, kcols, In, ipiv, ell)
+            if inside:
+                Wf, wpiv = In, ipiv
+                continue
+            T = st.combo_full(combo)
+            f = _charpoly_mod(_restrict_rows(Wf, wpiv, T, ell), ell)
+            g = _charpoly_mod(_restrict_rows(In, ipiv, T, ell), ell)
+            h = f // g
+            if h * g != f or h.gcd(g).degree() != 0:
+                return None, None
+            A = _poly_at(h, _restrict_rows(Wf, wpiv, T, ell), ell)
+            K, kcols = _left_kernel_cols(A, ell)
+            Wf, wpiv = _product_basis(K, kcols, Wf, wpiv, ell)
+        return Wf, wpiv
+
+    def _irreducible_pieces(self, tries: int = 2) -> tuple | None:
+        """(T, orbits) when the new part, cut by the W_Q of ``_al_roots`` (joint
+        eigenspaces) and by CM (for each D with CM newforms, ``cm_newform_count``: the
+        common kernel of T_p, p inert, and its complement), has pieces that are each
+        irreducible over Q(χ) — the subset-sum test of ``_irreducible_combo`` on the
+        charpoly of T on each piece modulo the 𝔩 above the first ``tries`` certified ℓ —
+        else None.  W_Q and the T_p are defined over Q(χ) and commute with the T_q, q ∤ N,
+        so each piece is stable under Gal(Q̄/Q(χ)) and, irreducible, one Galois orbit.
+        Dimensions: the W_Q-eigenspaces mod ℓ only grow and their sum is direct, so Σ =
+        dim_new certifies them; the CM kernels only grow, and contain the reductions of
+        the CM subspaces, so Σ of their dimensions = the number of CM newforms certifies
+        them (then their complements too)."""
+        from builder.forms.hecke_characters import cm_newform_count
+        from builder.forms.unit import _fundamental_discriminants_dividing
+
+        combo = self._squarefree_combo()
+        cms = {D: c for D in _fundamental_discriminants_dividing(self.N)
+               if (c := cm_newform_count(D, self.N, self.k, self.chi.order, self.chi.exponent))}
+        roots = self._al_roots()
+        if combo is None or not (roots or cms):
+            return None
+        pieces = [()]
+        for Q, t in roots:
+            pieces = [p + (("W", Q, t, sg),) for p in pieces for sg in (1, -1)]
+        primes = [ell for _, ell in zip(range(tries), self.primes(), strict=False)]
+        dims = self._piece_dims(primes[0], pieces, combo)
+        if dims is None or sum(dims.values()) != self.dim_new:
+            return None
+        pieces = [p for p in pieces if dims[p]]
+        for D, count in cms.items():
+            pieces = [p + (("CM", D, True),) for p in pieces] + [
+                p + (("CM", D, False),) for p in pieces if not any(e[0] == "CM" and e[2]
+                                                                  for e in p)]
+            dims = self._piece_dims(primes[0], pieces, combo)
+            if dims is None or sum(d for p, d in dims.items() if p[-1] == ("CM", D, True)
+                                   ) != count:
+                return None
+            pieces = [p for p in pieces if dims[p]]
+        found = []
+        for pc in pieces:
+            d = dims[pc]
+            possible = (1 << (d + 1)) - 1
+            for ell in primes:
+                rows = self._rows_relative(ell, pc, combo)
+                if rows is None:
+                    continue
+                for fa, *_ in rows.values():
+                    if fa.degree() != d:
+                        return None
+                    sums = 1
+                    for g, e in fa.factor()[1]:
+                        for _ in range(e):
+                            sums |= sums << g.degree()
+                    possible &= sums
+            if possible != 1 | (1 << d):
+                return None
+            found.append(CharOrbit(None, self.phi_m * d, piece=pc))
+        return combo, found
+
+    def _piece_dims(self, ell: int, pieces: list, combo: tuple) -> dict | None:
+        dims = {}
+        for pc in pieces:
+            rows = self._rows_relative(ell, pc, combo)
+            if rows is None:
+                return None
+            dims[pc] = rows[self.conjugates[0]][0].degree()
+        return dims
 
     def _eigen(self, ell: int, orbit: CharOrbit):
         """Per conjugate a: (f_a, φ on the free generators (n × d_a), v, φ(v)⁻¹) or None."""
@@ -711,6 +865,7 @@ class CharUnit:
 
 
 RELATIVE_ABOVE = 500  # absolute degree above which the new part is first tried whole
+CM_CUT = 8  # inert primes whose T_p-kernels cut out a CM piece
 
 
 def compute_char(N: int, k: int, chi: CharacterOrbit, params: Params, t0: float) -> SpaceRecord:
