@@ -228,8 +228,10 @@ def _write(units, results, stats, projection, wall, trivial, cap, capped, beyond
              "beyond the absolute lift (their absolute charpoly, degree φ(m)·dim_new, "
              "cannot be lifted with the primes ℓ ≡ 1 (mod m) below 2^21, e.g. "
              + ", ".join(f"{N}w{k}c{j}" for N, k, j, _ in beyond[:3])
-             + "): they are computed when their new part is irreducible over Q(χ) and "
-             "refused otherwise.", "",
+             + "): they are split over Q(χ) only — the new part whole, or cut into "
+             "Atkin–Lehner eigenspaces and CM subspaces, each proved irreducible — "
+             "and refused if a piece is not (all of them computed: the section below, "
+             "`bench_beyond_lift.py`).", "",
              "Two strata, sampled separately (seed "
              f"{SEED}) and computed two at a time, each unit in a fresh process stopped after "
              f"{cap:.0f} s: **long** = the {long_[0]} units where a CM orbit, if any, needed "
