@@ -86,7 +86,9 @@ def _charpoly_mod(A: np.ndarray, ell: int) -> flint.nmod_poly:
 
 
 def _poly_at(f: flint.nmod_poly, A: np.ndarray, ell: int) -> np.ndarray:
-    """f(A) modulo ℓ by Paterson–Stockmeyer (common practice): the powers I, A, …, A^(b−1)
+    """f(A) modulo ℓ by Paterson–Stockmeyer (M. S. Paterson, L. J. Stockmeyer, On the number
+    of nonscalar multiplications necessary to evaluate polynomials, SIAM J. Comput. 2 (1973);
+    from memory): the powers I, A, …, A^(b−1)
     once, then Horner in A^b over blocks of b coefficients — about 2√deg f matrix
     products instead of deg f (the eigen-functionals evaluate f_a of degree up to
     dim_new on the whole symbol space)."""
