@@ -25,13 +25,9 @@ import pytest
 
 from builder.arith import sturm_bound
 from builder.characters import character_orbits
+from builder.checks.formulas import class_number
 from builder.forms.charforms import CharUnit
-from builder.forms.hecke_characters import (
-    QuadraticOrder,
-    class_number,
-    cm_newform_count,
-    ideals_of_norm,
-)
+from builder.forms.hecke_characters import QuadraticOrder, cm_newform_count, ideals_of_norm
 from tests.forms_oracles import is_fundamental_discriminant, kronecker, primes_upto
 
 FUNDAMENTAL = [D for D in range(-3, -400, -1) if is_fundamental_discriminant(D)]

@@ -21,10 +21,10 @@ Everything is computed modulo primes ℓ ≡ 1 (mod m), < 2^21, for every conjug
    irreducibility over Q(χ) instead, from the factorisations of its relative charpoly
    modulo the degree-one primes 𝔩 above one or two ℓ (``_irreducible_combo``): if it is,
    the unit is one orbit and no absolute polynomial is lifted (none is stored).  If it is
-   not, the new part is cut by the W_Q whose
-   eigenvalues ±Q^((k−2)/2)·ζ_m^t lie in Q(χ) (``_irreducible_pieces``) and each joint
-   eigenspace, Galois-stable over Q(χ), is tested the same way: irreducible pieces are the
-   orbits; a unit where some piece is not is refused.
+   not, the new part is cut by the W_Q whose eigenvalues ±Q^((k−2)/2)·ζ_m^t lie in Q(χ)
+   and into its CM and non-CM parts (``_irreducible_pieces``); each piece, Galois-stable
+   over Q(χ), is tested the same way and irreducible pieces are the orbits.  Otherwise the
+   absolute path, refused when its polynomial cannot be lifted.
 3. **Eigen-functionals.**  For an orbit (F, the operator T_q whose charpoly it is) and a
    conjugate a: f_a = gcd(F mod ℓ, charpoly_a) is its relative factor; the functionals of
    the orbit are the kernel of f_a(T_q^t) on M*, cut further by g(T_{q'}^t) (g the
@@ -123,6 +123,16 @@ def _product_basis(Y: np.ndarray, ycols: list[int], S: np.ndarray, scols: list[i
     return np.mod(matmul_mod(Y, S, ell), ell), [scols[c] for c in ycols]
 
 
+def _degree_sums(f: flint.nmod_poly) -> int:
+    """Bit e set iff e is the degree of a product of some irreducible factors of f mod ℓ
+    (with multiplicity): the degrees a factor over Q(χ) could have (``_irreducible_combo``)."""
+    sums = 1
+    for g, e in f.factor()[1]:
+        for _ in range(e):
+            sums |= sums << g.degree()
+    return sums
+
+
 def _restrict_rows(V: np.ndarray, piv: list[int], T: np.ndarray, ell: int) -> np.ndarray:
     """Matrix of T (row action) on the row space of V, V[:, piv] = identity."""
     return matmul_mod(V, T, ell)[:, piv]
@@ -213,8 +223,8 @@ class _Conj:
 class CharOrbit:
     """An absolute Galois orbit: the irreducible factor F (degree d) of the absolute
     characteristic polynomial of the unit's splitting operator T (``CharUnit.combo``) —
-    or, with ``poly = None``, a *relative* orbit: the whole new part, or its joint
-    eigenspace ``piece`` of Atkin–Lehner operators, when that is irreducible over Q(χ)
+    or, with ``poly = None``, a *relative* orbit: the whole new part, or a ``piece`` of it
+    (Atkin–Lehner eigenspaces, CM parts), when that is irreducible over Q(χ)
     (``CharUnit.split``: F is then never lifted; ``dim`` = φ(m)·its dimension).
     ``piece``: the cuts that define it (``CharUnit._piece_rows``)."""
 
@@ -379,12 +389,7 @@ class CharUnit:
             if t >= tries:
                 break
             for a in self.conjugates:
-                _, facs = _charpoly_mod(self.conj(ell, a).combo(combo), ell).factor()
-                sums = 1
-                for g, e in facs:
-                    for _ in range(e):
-                        sums |= sums << g.degree()
-                possible &= sums
+                possible &= _degree_sums(_charpoly_mod(self.conj(ell, a).combo(combo), ell))
                 if possible == 1 | (1 << d):
                     return combo
         return None
@@ -511,7 +516,7 @@ class CharUnit:
             out[a] = (fa, A, Wf, wpiv)
         return out
 
-    # -- relative pieces: Atkin–Lehner eigenspaces of the new part --------------------------------
+    # -- relative pieces: Atkin–Lehner eigenspaces and CM parts of the new part ------------------
     def _al_roots(self) -> list[tuple[int, int]]:
         """(Q, t) for the Q ∥ N with χ trivial modulo Q whose W_Q has its eigenvalues
         ±Q^((k−2)/2)·ζ_m^t in Q(χ): W_Q² = χ̄_{N/Q}(Q)·Q^(k−2) on the new part ([AL78] §1),
@@ -523,8 +528,7 @@ class CharUnit:
             if self.k % 2 and isqrt(Q) ** 2 != Q:
                 continue
             R = self.N // Q
-            n = next(n for n in range(1, self.N * Q + 1) if n % R == Q % R and n % Q == 1 % Q)
-            e = self.chi.exponent(n)
+            e = self.chi.exponent(Q + R * pow(R, -1, Q))  # n ≡ Q (mod N/Q), n ≡ 1 (mod Q)
             if m % 2:
                 out.append((Q, (-e * pow(2, -1, m)) % m))
             elif e % 2 == 0:
@@ -553,8 +557,10 @@ class CharUnit:
                 if (2 * Q) % ell == 0:
                     return None, None
                 lam = sign * isqrt(Q ** (self.k - 2)) * pow(w, st.a * t, ell) % ell
-                W = np.stack([M.atkin_lehner_of_symbol(x, Q) for x in M.free])
-                A = np.mod(_restrict_rows(Wf, wpiv, W, ell) - lam * np.eye(Wf.shape[0]), ell)
+                if ("W", Q) not in st._ops:
+                    st._ops[("W", Q)] = np.stack([M.atkin_lehner_of_symbol(x, Q) for x in M.free])
+                A = _restrict_rows(Wf, wpiv, st._ops[("W", Q)], ell)
+                A = np.mod(A - lam * np.eye(Wf.shape[0]), ell)
                 K, kcols = _left_kernel_cols(A, ell)
                 Wf, wpiv = _product_basis(K, kcols, Wf, wpiv, ell)
                 continue
@@ -629,11 +635,7 @@ class CharUnit:
                 for fa, *_ in rows.values():
                     if fa.degree() != d:
                         return None
-                    sums = 1
-                    for g, e in fa.factor()[1]:
-                        for _ in range(e):
-                            sums |= sums << g.degree()
-                    possible &= sums
+                    possible &= _degree_sums(fa)
             if possible != 1 | (1 << d):
                 return None
             found.append(CharOrbit(None, self.phi_m * d, piece=pc))
@@ -1071,23 +1073,13 @@ def _cm_all(U: CharUnit) -> dict[int, int | None]:
     """id(orbit) ↦ its CM discriminant or None, for every orbit of U: for each D the
     number of newforms with CM by Q(√D) is counted from Hecke characters, then the orbits
     that carry them are found and certified by ``cm_orbits`` (builder.forms.hecke_characters)."""
-    from builder.forms.hecke_characters import cm_newform_count, cm_orbits
-    from builder.forms.unit import _fundamental_discriminants_dividing
+    from builder.forms.hecke_characters import cm_discriminants
 
-    if "_cm" in U.__dict__:
-        return U.__dict__["_cm"]
-    out: dict[int, int | None] = {id(o): None for o in U.orbits}
-    undecided = list(U.orbits)
-    for D in _fundamental_discriminants_dividing(U.N):
-        count = cm_newform_count(D, U.N, U.k, U.chi.order, U.chi.exponent)
-        if count:
-            alive = cm_orbits(U.N, U.k, D, undecided, count, U.ap_is_zero,
-                              lambda o: o.dim // U.phi_m)
-            for o in alive:
-                out[id(o)] = D
-            undecided = [o for o in undecided if out[id(o)] is None]
-    U.__dict__["_cm"] = out
-    return out
+    if "_cm" not in U.__dict__:
+        found = cm_discriminants(U.N, U.k, U.chi.order, U.chi.exponent, U.orbits,
+                                 U.ap_is_zero, lambda o: o.dim // U.phi_m)
+        U.__dict__["_cm"] = {id(o): D for o, D in zip(U.orbits, found, strict=True)}
+    return U.__dict__["_cm"]
 
 
 _MODULI: dict[int, list] = {}  # m ↦ [primes ℓ ≡ 1 (mod m) still to come, their product so far]

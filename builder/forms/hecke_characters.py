@@ -14,10 +14,10 @@ characters of G = (O/𝔪)^× that take prescribed values on the subgroup H gene
 images of O^× (u ↦ u^−(k−1)) and of the integers prime to N (n ↦ χχ_D(n)); there are
 |G|/|H| of them when the prescription is a well-defined character of H (checked by walking
 H, which is small: |H| ≤ N/|D|) and none otherwise; each extends to h_K Hecke characters
-(I^𝔪/P^𝔪 ≅ Cl_K).  Primitive ones follow by Möbius inversion over the ideal divisors of
-𝔪.  The count certifies CM in ``builder.forms.charforms``: the orbits that survive a
-short walk of a_p = 0 over inert p are exactly the CM orbits once their number of
-newforms equals this count.
+(I^𝔪/P^𝔪 ≅ Cl_K; h_K by reduced forms, builder.checks.formulas).  Primitive ones follow
+by Möbius inversion over the ideal divisors of 𝔪.  The count certifies CM (``cm_orbits``):
+the orbits that survive a short walk of a_p = 0 over inert p are exactly the CM orbits
+once their number of newforms equals this count.
 
 [Ri77] K. A. Ribet, Galois representations attached to eigenforms with Nebentypus, in
 Modular Functions of One Variable V, LNM 601 (1977).
@@ -30,30 +30,14 @@ from __future__ import annotations
 from collections.abc import Callable
 from functools import lru_cache
 from itertools import combinations, product
-from math import gcd, isqrt
+from math import gcd
 
 import flint
 
 from builder.arith import factor
+from builder.checks.formulas import class_number
 
 Ideal = tuple[int, int, int]  # HNF rows (a, b), (0, c) of the lattice {x + yω} ⊂ Z²
-
-
-def class_number(D: int) -> int:
-    """h(D) for a negative discriminant D: the number of reduced forms (a, b, c),
-    b² − 4ac = D, |b| ≤ a ≤ c, b ≥ 0 when |b| = a or a = c ([Co93] Alg. 5.3.5)."""
-    if D >= 0 or D % 4 not in (0, 1):
-        raise ValueError(f"not a negative discriminant: {D}")
-    h = 0
-    for a in range(1, isqrt(-D // 3) + 1):
-        for b in range(-a + 1, a + 1):
-            if (b * b - D) % (4 * a):
-                continue
-            c = (b * b - D) // (4 * a)
-            if c < a or (c == a and b < 0):
-                continue
-            h += 1
-    return h
 
 
 class QuadraticOrder:
@@ -237,3 +221,22 @@ def cm_orbits(N: int, k: int, D: int, orbits: list, count: int,
         raise ArithmeticError(f"CM by {D} at level {N}, weight {k}: the inert primes leave "
                               f"{held(alive)} newforms, the Hecke characters count {count}")
     return alive
+
+
+def cm_discriminants(N: int, k: int, m: int, chi_exp: Callable[[int], int], orbits: list,
+                     is_zero: Callable[[object, int], bool],
+                     size: Callable[[object], int]) -> list[int | None]:
+    """The CM discriminant (or None) of each orbit of S_k^new(N, χ), all orbits together:
+    for each fundamental D < 0 with |D| | N the CM newforms by Q(√D) are counted
+    (``cm_newform_count``; none: nothing to walk) and carried by ``cm_orbits``."""
+    from builder.forms.unit import _fundamental_discriminants_dividing
+
+    out: dict[int, int | None] = {id(o): None for o in orbits}
+    undecided = list(orbits)
+    for D in _fundamental_discriminants_dividing(N):
+        count = cm_newform_count(D, N, k, m, chi_exp) if undecided else 0
+        if count:
+            for o in cm_orbits(N, k, D, undecided, count, is_zero, size):
+                out[id(o)] = D
+            undecided = [o for o in undecided if out[id(o)] is None]
+    return [out[id(o)] for o in orbits]

@@ -256,24 +256,15 @@ def cm_discriminant(E: EigenForm) -> int | None:
 
 
 def cm_discriminants(eigs: list[EigenForm]) -> list[int | None]:
-    """The CM discriminant (or None) of every orbit of one space, all orbits together: for
-    each D the number of CM newforms by Q(√D) is counted from Hecke characters and the
-    orbits carrying them are found and certified by builder.forms.hecke_characters.cm_orbits
-    (usually after a few inert primes instead of the Sturm bound of ``cm_discriminant``)."""
-    from builder.forms.hecke_characters import cm_newform_count, cm_orbits
+    """The CM discriminant (or None) of every orbit of one space, all orbits together,
+    from the count of CM newforms by Hecke characters (builder.forms.hecke_characters):
+    usually a few inert primes instead of the Sturm bound of ``cm_discriminant``."""
+    from builder.forms import hecke_characters
 
-    out: dict[int, int | None] = {id(E): None for E in eigs}
     if not eigs:
         return []
-    N, k = eigs[0].N, eigs[0].k
-    undecided = list(eigs)
-    for D in _fundamental_discriminants_dividing(N):
-        count = cm_newform_count(D, N, k, 1, lambda n: 0)
-        if count:
-            for E in cm_orbits(N, k, D, undecided, count, _ap_is_zero, lambda E: E.d):
-                out[id(E)] = D
-            undecided = [E for E in undecided if out[id(E)] is None]
-    return [out[id(E)] for E in eigs]
+    return hecke_characters.cm_discriminants(eigs[0].N, eigs[0].k, 1, lambda n: 0, eigs,
+                                             _ap_is_zero, lambda E: E.d)
 
 
 def _ap_is_zero(E: EigenForm, p: int) -> bool:
