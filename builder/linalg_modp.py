@@ -24,6 +24,7 @@ entries may not fit); an exact rational matrix is ``QMat(num, den)`` = num/den.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from math import gcd, isqrt
 
 import flint
@@ -444,14 +445,29 @@ def q_equal(A: QMat, B: QMat) -> bool:
 # -- exact rref, kernel, image ---------------------------------------------------------------
 
 
-@dataclass
 class Echelon:
-    """The exact rref of an integer matrix: R = num/den (rank × ncols), R[:, piv] = I."""
+    """The exact rref of an integer matrix: R = num/den (rank × ncols), R[:, piv] = I.
 
-    num: np.ndarray
-    den: int
-    piv: list[int]
-    ncols: int
+    A big lifted echelon form keeps its free block as balanced ℓ-adic digits
+    (``free_digits``): its residues modulo other primes, which is all the modular code
+    needs, come from the digits in int64, and ``num`` is built from them only on demand.
+    """
+
+    def __init__(self, num: np.ndarray | None, den: int, piv: list[int], ncols: int,
+                 free_digits: DigitInts | None = None) -> None:
+        self._num = num
+        self.den, self.piv, self.ncols = den, piv, ncols
+        self.free_digits = free_digits
+
+    @property
+    def num(self) -> np.ndarray:
+        if self._num is None:
+            R = np.zeros((self.rank, self.ncols), dtype=object)
+            for i, c in enumerate(self.piv):
+                R[i, c] = self.den
+            R[:, self.free] = self.free_digits.value()
+            self._num = _as_int(R)
+        return self._num
 
     @property
     def rank(self) -> int:
@@ -459,12 +475,13 @@ class Echelon:
 
     @property
     def free(self) -> list[int]:
-        ps = set(self.piv)
-        return [c for c in range(self.ncols) if c not in ps]
+        return _complement(self.piv, self.ncols)
 
     def kernel(self) -> QMat:
         """Columns spanning {x : Z·x = 0}: X[free, :] = I, X[piv, :] = −R[:, free]."""
         free = self.free
+        if self.free_digits is not None:
+            return DigitKernel(self, free)
         X = np.zeros((self.ncols, len(free)), dtype=self.num.dtype)
         for j, c in enumerate(free):
             X[c, j] = self.den
@@ -474,6 +491,75 @@ class Echelon:
 
     def rows(self) -> QMat:
         return QMat(self.num, self.den)
+
+
+class DigitInts:
+    """An integer matrix Σ_m f_m·ℓ^m held as balanced digits |f_m| ≤ (ℓ − 1)/2 (int64
+    arrays, ℓ < 2^21 odd): residues modulo word primes by Horner's rule in int64, the
+    Python-integer value only on demand."""
+
+    def __init__(self, digits: list[np.ndarray], ell: int) -> None:
+        self.digits, self.ell = digits, ell
+        self.shape = digits[0].shape
+
+    def bound(self) -> int:
+        """An integer > every |entry|."""
+        return self.ell ** len(self.digits)
+
+    def mod(self, p: int) -> np.ndarray:
+        """Residues in [0, p) (int64) for a modulus p < 2^31."""
+        if p >= (1 << 31):
+            raise ValueError(f"DigitInts.mod needs p < 2^31, got {p}")
+        base = self.ell % p
+        acc = np.zeros(self.shape, dtype=np.int64)
+        for f in reversed(self.digits):
+            acc = np.mod(acc * base + f, p)
+        return acc
+
+    def value(self) -> np.ndarray:
+        return _as_int(np.asarray(_from_digits(self.digits, self.ell)))
+
+    def entry(self, flat_index: int) -> int:
+        return sum(int(f.flat[flat_index]) * self.ell**m for m, f in enumerate(self.digits))
+
+
+class DigitKernel(QMat):
+    """``Echelon.kernel()`` of a digit echelon form: X[free] = den·I, X[piv] = −(free
+    block), over den (not reduced).  Residues come from the digits; ``num`` is built
+    only when something needs the exact integers."""
+
+    def __init__(self, E: Echelon, free: list[int]) -> None:
+        self.E, self.den, self._free = E, E.den, free
+
+    @cached_property
+    def num(self) -> np.ndarray:  # type: ignore[override]
+        X = np.zeros(self.shape, dtype=object)
+        X[self._free, np.arange(len(self._free))] = self.den
+        if self.E.piv:
+            X[self.E.piv, :] = -self.E.free_digits.value()
+        return _as_int(X)
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return (self.E.ncols, len(self._free))
+
+    def reduced(self) -> QMat:
+        return self
+
+    def mod(self, ell: int) -> np.ndarray:
+        if ell >= FLOAT_PRIME_TOP:
+            return np.asarray(self.mod_int(ell), dtype=np.float64)
+        return self.mod_int(ell).astype(np.float64)
+
+    def mod_int(self, ell: int) -> np.ndarray:
+        if ell >= (1 << 31):
+            return QMat(self.num, self.den).mod_int(ell)
+        inv = pow(self.den % ell, -1, ell)
+        X = np.zeros(self.shape, dtype=np.int64)
+        X[self._free, np.arange(len(self._free))] = 1
+        if self.E.piv:
+            X[self.E.piv, :] = np.mod(-self.E.free_digits.mod(ell) * inv, ell)
+        return X
 
 
 def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
@@ -501,7 +587,7 @@ def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
         if len(piv) < best:
             continue
         best = len(piv)
-        free = [c for c in range(n) if c not in set(piv)]
+        free = _complement(piv, n)
         if not free:
             E = Echelon(_identity_rows(piv, n), 1, list(piv), n)
             if _rowspace_check(Z, E):
@@ -511,6 +597,12 @@ def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
         if E is not None:
             return E
     raise ArithmeticError(f"exact rref of a {m}×{n} matrix did not lift")
+
+
+def _complement(piv: list[int], n: int) -> list[int]:
+    """The columns 0..n−1 that are not pivots, increasing."""
+    ps = set(piv)
+    return [c for c in range(n) if c not in ps]
 
 
 def _compress(Z: np.ndarray, seed: int) -> np.ndarray:
@@ -560,14 +652,74 @@ def _dixon(Z: np.ndarray, W: np.ndarray, piv: list[int], prows: list[int], free:
         else:
             Rcur = (Rcur - int_matmul(B, Yi).astype(object)) // ell
         M *= ell
-        if len(digits) < 2 or _common_denominator_lift(np.mod(acc_s, M)[None, :], M) is None:
+        cand = _common_denominator_lift(np.mod(acc_s, M)[None, :], M) if len(digits) > 1 else None
+        if cand is None:
             continue  # the sample does not lift yet: more digits first (cheap test)
-        acc = _from_digits(digits, ell)
-        E = _lift_echelon(_as_int(np.mod(acc, M)) if M < (1 << 62) else np.mod(acc, M), M,
-                          piv, n)
+        if M >= (1 << 62) and digits[0].size > 20000:
+            E = _lift_echelon_digits(digits, ell, cand[1], piv, n)
+        else:
+            acc = _from_digits(digits, ell)
+            E = _lift_echelon(_as_int(np.mod(acc, M)) if M < (1 << 62) else np.mod(acc, M), M,
+                              piv, n)
         if E is not None and _rowspace_check(Z, E):
             return E
     return None
+
+
+def _lift_echelon_digits(digits: list[np.ndarray], ell: int, D: int, piv: list[int],
+                         n: int, rounds: int = 4) -> Echelon | None:
+    """``_lift_echelon`` for a big block without Python integers: a candidate common
+    denominator D (from a sample, enlarged by the entries that do not come out small) turns
+    the ℓ-adic approximation A of the free block into numerators balanced(D·A mod ℓ^k),
+    computed digit by digit in int64 (``_scaled_digits``).  They are accepted as small when
+    every digit from h on vanishes, ℓ^h ≤ 2·sqrt(M/2) (so |num|, D ≤ sqrt(M/2): Wang's
+    uniqueness bound); the caller still checks the result exactly."""
+    k = len(digits)
+    M = ell**k
+    limit = isqrt(M // 2)
+    h = 0
+    while ell ** (h + 1) <= 2 * limit:
+        h += 1
+    for _ in range(rounds):
+        if D > limit:
+            return None
+        f = _scaled_digits(digits, ell, D)
+        big = np.zeros(f[0].shape, dtype=bool)
+        for m in range(h, k):
+            big |= f[m] != 0
+        if not np.any(big):
+            top = max((m for m in range(h) if np.any(f[m] != 0)), default=0)
+            return Echelon(None, D, list(piv), n, free_digits=DigitInts(f[: top + 1], ell))
+        A = DigitInts(digits, ell)
+        for idx in np.nonzero(big.ravel())[0][:16].tolist():
+            r = _rr_one(A.entry(idx) * D % M, M)
+            if r is None:
+                return None
+            D *= r[1]
+    return None
+
+
+def _scaled_digits(digits: list[np.ndarray], ell: int, D: int) -> list[np.ndarray]:
+    """Balanced base-ℓ digits of D·A mod ℓ^k for A = Σ_{m<k} digits[m]·ℓ^m (int64 only:
+    each column sum of digit products stays below k·2^41, exact for k < 2^21)."""
+    k = len(digits)
+    e = []
+    x = D % ell**k
+    while x and len(e) < k:
+        e.append(x % ell)
+        x //= ell
+    out = []
+    carry = np.zeros(digits[0].shape, dtype=np.int64)
+    half = ell // 2
+    for m in range(k):
+        t = carry
+        for j in range(min(m + 1, len(e))):
+            if e[j]:
+                t = t + digits[m - j] * e[j]
+        q = (t + half) // ell
+        out.append(t - q * ell)
+        carry = q
+    return out
 
 
 def _from_digits(digits: list[np.ndarray], ell: int) -> np.ndarray:
@@ -591,7 +743,7 @@ def _from_digits(digits: list[np.ndarray], ell: int) -> np.ndarray:
 
 def _lift_echelon(acc: np.ndarray, M: int, piv: list[int], n: int) -> Echelon | None:
     rank = len(piv)
-    free = [c for c in range(n) if c not in set(piv)]
+    free = _complement(piv, n)
     lifted = _common_denominator_lift(acc, M)
     if lifted is None:
         if acc.size > 20000:
@@ -668,7 +820,8 @@ def _rowspace_check(Z: np.ndarray, E: Echelon) -> bool:
     free = E.free
     if not free:
         return True
-    if E.piv and E.num.dtype == object and Z.dtype != object and _absmax(Z) < (1 << 20):
+    small_z = Z.dtype != object and _absmax(Z) < (1 << 20)
+    if E.piv and small_z and (E.free_digits is not None or E.num.dtype == object):
         return _rowspace_check_modular(Z, E)
     lhs = _scale(Z[:, free], E.den)
     rhs = int_matmul(Z[:, E.piv], E.num[:, free]) if E.piv else np.zeros_like(lhs)
@@ -683,16 +836,19 @@ def _rowspace_check_modular(Z: np.ndarray, E: Echelon) -> bool:
     prime instead of big-integer limbs."""
     free = E.free
     A = Z[:, E.piv]
-    num = E.num[:, free]
+    digits = E.free_digits
+    num = E.num[:, free] if digits is None else None
     ra = max(_rowabs_max(A), 1)
-    bound = max(ra * _absmax_any(num), _absmax_any(Z[:, free]) * int(E.den))
-    top = 1 << min(50, ((1 << 53) // (2 * ra)).bit_length() - 1)
+    nmax = digits.bound() if digits is not None else _absmax_any(num)
+    bound = max(ra * nmax, _absmax_any(Z[:, free]) * int(E.den))
+    top = 1 << min(50 if digits is None else 31, ((1 << 53) // (2 * ra)).bit_length() - 1)
     Af = A.astype(np.float64)
     Zf = Z[:, free].astype(np.int64)  # |Z|·ℓ < 2^62: the left side stays in int64
     prod = 1
     for ell in word_primes(top):
         lhs = np.mod(Zf * (int(E.den) % ell), ell)
-        rhs = np.mod(Af @ np.mod(num, ell).astype(np.int64).astype(np.float64), ell)
+        res = digits.mod(ell) if digits is not None else np.mod(num, ell).astype(np.int64)
+        rhs = np.mod(Af @ res.astype(np.float64), ell)
         if not np.array_equal(lhs, rhs.astype(np.int64)):
             return False
         prod *= ell

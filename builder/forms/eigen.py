@@ -575,15 +575,20 @@ def fill_multiplicative(a: list, B: int, N: int, k: int, mul, one) -> None:
             a[q] = nxt
     for n in range(2, B + 1):
         f = factor(n)
-        if len(f) > 1:
-            val = one
-            for p, e in f:
-                val = mul(val, a[p**e])
-            a[n] = val
+        if len(f) > 1:  # a_n = a_{n/q}·a_q, q = p^e ∥ n for the smallest p | n
+            q = f[0][0] ** f[0][1]
+            a[n] = mul(a[n // q], a[q])
 
 
 def _traces_mod(aps: dict, o: Orbit, B: int, k: int, N: int, ell: int,
                 f: flint.nmod_poly) -> list[int]:
+    if o.dim == 1:  # K = Q: a_n are residues, Tr a_n = a_n (plain integers are faster)
+        b: list = [0] * (B + 1)
+        b[1] = 1
+        for p, v in aps.items():
+            b[p] = int(v[0])
+        fill_multiplicative(b, B, N, k, lambda x, y: x * y % ell, 1)
+        return [x % ell for x in b[1:]]
     one = flint.nmod_poly([1], ell)
     a: list = [None] * (B + 1)
     a[1] = one

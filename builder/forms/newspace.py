@@ -50,6 +50,7 @@ import numpy as np
 
 from builder.arith import divisors, factor, is_prime, moebius, prime_divisors, sturm_bound
 from builder.linalg_modp import (
+    DigitKernel,
     QMat,
     charpoly_bounded,
     exact_rref,
@@ -138,6 +139,10 @@ class _ModStructure:
     def root_op(self, kind: str, n: int) -> np.ndarray:
         """The operator on Ann(Old) modulo ℓ (r × r, column action)."""
         key = (kind, n)
+        if key not in self._ops and kind == "C":
+            # Σ c·T_q from the T_q modulo ℓ: no exact combination of the big matrices
+            out = sum(c * self.root_op("T", q) for q, c in n)
+            self._ops[key] = np.mod(out, self.ell)
         if key not in self._ops:
             T = self.new.full_op(kind, n)
             free = self.new.free
@@ -157,7 +162,10 @@ class _ModStructure:
         if parent is not None:
             step = label[-1]
             s = self.dim(label[:-1])
-            if step[0] == "W":
+            if step[0] == "W" and self.new.exact_signs:
+                K, free = self.new.exact_sign_piece(label)
+                out = (K.mod(self.ell), free) if K.den % self.ell else None
+            elif step[0] == "W":
                 _, Q, eps = step
                 A = self.op(label[:-1], "W", Q)
                 out = _kernel_mod(A - eps * np.eye(s), self.ell)
@@ -257,9 +265,9 @@ class NewSpace:
         cache = self._exact_ops
         if key not in cache:
             A = self.old_conditions if kind == "old" else self.full_op(kind, n).num
-            small = A.dtype != object
-            cache[key] = (A, A.astype(np.float64) if small else None,
-                          _row_abs_max(A) if small else None)
+            Af = A.astype(np.float64) if A.dtype != object else None
+            cache[key] = (A, Af, int(np.abs(Af).sum(axis=1).max(initial=0)) if (
+                Af is not None) else None)
         A, Af, ra = cache[key]
         if Af is not None and v.dtype != object and ra * int(np.max(np.abs(v), initial=0)) < (
                 1 << 53):
@@ -383,7 +391,11 @@ class NewSpace:
         for big pieces of levels with few sign vectors (prime levels, products of two
         primes); None otherwise (primary parts, many small pieces).
         """
-        if any(step[0] != "W" for step in label) or not self._exact_pieces_pay:
+        if any(step[0] != "W" for step in label):
+            return None
+        if self.exact_signs:
+            return self._exact_node_op(label, "T", q)
+        if not self._exact_pieces_pay:
             return None
         E = self._exact_sign_piece(label)
         if E is None:
@@ -391,6 +403,40 @@ class NewSpace:
         Y, rows = E
         T = self.full_op("T", q)
         return QMat(int_matmul(T.num, Y.num)[rows], T.den * Y.den).reduced()
+
+    @cached_property
+    def exact_signs(self) -> bool:
+        """Whether the sign pieces are cut out exactly inside Ann(Old): when its basis X
+        has word-size entries, (W_Q·X)[free] is a small exact matrix and the kernels of
+        W_Q − ε on it cost less than one elimination per prime; every piece then reduces
+        modulo each good prime without any elimination, and its T_q has an exact
+        characteristic polynomial (``charpoly_bounded``) instead of many 21-bit CRT steps."""
+        return (not isinstance(self.X, DigitKernel) and self.X.num.dtype != object
+                and self.coord_dim > 0)
+
+    def exact_sign_piece(self, label: Label) -> tuple[QMat, list[int]]:
+        """(K, free): the ε-eigenspace of W_Q (label[-1] = ("W", Q, ε)) inside the parent
+        sign piece, exactly: columns in the parent's coordinates, K[free] = identity."""
+        cache = self._exact_ops
+        key = ("sign", label)
+        if key not in cache:
+            _, Q, eps = label[-1]
+            A = self._exact_node_op(label[:-1], "W", Q)
+            E = exact_rref(_minus_scalar(A, eps).num)
+            cache[key] = (E.kernel(), E.free)
+        return cache[key]
+
+    def _exact_node_op(self, label: Label, kind: str, n) -> QMat:
+        """An operator on an exact sign piece (column action): A' with A·K = K·A'."""
+        if label == ():
+            return self.op(kind, n)
+        key = ("node", label, kind, n)
+        cache = self._exact_ops
+        if key not in cache:
+            K, free = self.exact_sign_piece(label)
+            AK = self._exact_node_op(label[:-1], kind, n) @ K
+            cache[key] = QMat(AK.num[free], AK.den).reduced()
+        return cache[key]
 
     @cached_property
     def _exact_pieces_pay(self) -> bool:
