@@ -13,8 +13,11 @@ from functools import cache
 
 import flint
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
-from builder.forms.eigen import EigenForm
+from builder.forms.eigen import EigenForm, traces_in_quotient
+from builder.forms.fields import _power_sums
 from builder.forms.newspace import new_space
 from builder.forms.unit import all_traces, cm_discriminant, exact_an, hecke_traces
 from tests import oracles as o
@@ -190,3 +193,22 @@ def test_cm_discriminant_of_rational_forms(N, D):
 def test_delta_has_no_cm():
     (E,) = eigenforms(1, 12)
     assert cm_discriminant(E) is None
+
+
+@settings(max_examples=80, deadline=None)
+@given(st.lists(st.integers(-50, 50), min_size=2, max_size=12), st.integers(0, 10**6))
+def test_trace_in_quotient_is_the_sum_over_the_roots(coeffs, seed):
+    """Tr(x(α)) from one product x·f′ mod f agrees with the power sums of the roots of f
+    (Newton's identities, over Q; then reduced modulo ℓ) — common practice."""
+    import random
+
+    f_q = flint.fmpz_poly(coeffs + [1])  # monic
+    d = f_q.degree()
+    rng = random.Random(seed)
+    xs = [[rng.randrange(-9, 10) for _ in range(d)] for _ in range(5)]
+    ell = 1_000_003
+    p = _power_sums(f_q, d)
+    want = [sum(c * p[j] for j, c in enumerate(x)) % ell for x in xs]
+    f = flint.nmod_poly([int(c) for c in f_q.coeffs()], ell)
+    got = traces_in_quotient([flint.nmod_poly(x, ell) for x in xs], f)
+    assert [int(t) for t in got] == want

@@ -34,7 +34,7 @@ import flint
 import numpy as np
 
 from builder.arith import factor, is_prime, primes_up_to
-from builder.forms.fields import NumberField, _power_sums
+from builder.forms.fields import NumberField
 from builder.forms.newspace import NewSpace, Orbit, op_bound, op_key
 from builder.linalg_modp import (
     QMat,
@@ -599,12 +599,18 @@ def _traces_mod(aps: dict, o: Orbit, B: int, k: int, N: int, ell: int,
         return (x * y) % f
 
     fill_multiplicative(a, B, N, k, mul, one)
-    ps = [x % ell for x in _power_sums(o.poly, o.dim)]
-    out = []
-    for n in range(1, B + 1):
-        c = [int(x) for x in a[n].coeffs()]
-        out.append(sum(ci * ps[j] for j, ci in enumerate(c)) % ell)
-    return out
+    return [int(x) for x in traces_in_quotient(a[1:], f)]
+
+
+def traces_in_quotient(xs: list, f: flint.nmod_poly) -> list:
+    """Tr(x(α)) = Σ over the roots r of f of x(r), for x of degree < d = deg f, f monic:
+    the coefficient of t^(d−1) in x·f′ mod f.  Why (Euler's partial fractions, common
+    practice): (x·f′ mod f)/f = Σ_r x(r)/(t − r), whose numerator has leading coefficient
+    Σ_r x(r); an identity of polynomials in the coefficients, so it holds modulo ℓ too.
+    One product in C per element instead of d coefficient reads in Python."""
+    d = f.degree()
+    fp = f.derivative()
+    return [((x * fp) % f)[d - 1] for x in xs]
 
 
 def _solve_cols(U: flint.fmpq_mat, TU: flint.fmpq_mat) -> flint.fmpq_mat:
