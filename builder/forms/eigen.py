@@ -124,11 +124,15 @@ class _ModState:
             off += d
 
     def _choose_base(self) -> None:
-        """For every good orbit a free generator v with φ(v) a unit in F_ℓ[x]/(f): the
-        first one that serves all orbits if there is one (one Heilbronn sum per p), else
-        the first one for each orbit."""
+        """For every good orbit a Manin symbol v with φ(v) a unit in F_ℓ[x]/(f): one that
+        serves all orbits if there is one (then T_p v is one Heilbronn sum per p for the
+        whole space), else the first free generator for each orbit.  φ∘T_p = a_p·φ holds
+        on all of M, so any symbol will do: free generators first, then symbols whose
+        coordinates mix several generators (a functional of one sign piece often
+        vanishes on the first generators, a mixed symbol rarely)."""
         todo = [i for i, g in enumerate(self.good) if g]
         n = self.phi.shape[0]
+        free = self.system.space.pres.free
         first: dict[int, int] = {}
         for t in range(min(n, _V_SCAN)):
             units = 0
@@ -140,10 +144,14 @@ class _ModState:
                 if i not in first:
                     first[i] = t
             if units == len(todo):
-                first = dict.fromkeys(todo, t)
-                break
+                self._set_base(todo, free[t], self.phi[t])
+                return
             if len(first) == len(todo) and t > 8:
                 break
+        shared = self._mixed_base(todo)
+        if shared is not None:
+            self._set_base(todo, *shared)
+            return
         for t in range(min(n, _V_SCAN), n):  # rare: φ vanishes on all the first symbols
             missing = [i for i in todo if i not in first]
             if not missing:
@@ -155,8 +163,34 @@ class _ModState:
             if i not in first:
                 self.good[i] = False  # φ vanishes somewhere on every tried symbol
                 continue
-            self.v[i] = first[i]
-            self.inv_v[i] = self._unit_inverse(self.phi[first[i]], i)
+            self._set_base([i], free[first[i]], self.phi[first[i]])
+
+    def _set_base(self, orbits: list[int], x: int, row: np.ndarray) -> None:
+        for i in orbits:
+            self.v[i] = x
+            self.inv_v[i] = self._unit_inverse(row, i)
+
+    def _mixed_base(self, todo: list[int]) -> tuple[int, np.ndarray] | None:
+        """(symbol, φ row) for the first of the Manin symbols with ≥ 2 coordinates
+        (at most ``_V_SCAN`` of them) on which every orbit in todo is a unit."""
+        S = self.system.space
+        indptr, gen, num, den = S.coord_csr
+        if den % self.ell == 0:
+            return None
+        cand = np.nonzero(np.diff(indptr) >= 2)[0][:_V_SCAN]
+        inv_den = pow(den % self.ell, -1, self.ell)
+        for lo in range(0, len(cand), 64):
+            batch = cand[lo : lo + 64]
+            rows = np.zeros((len(batch), S.dim))
+            for r, x in enumerate(batch.tolist()):
+                seg = slice(indptr[x], indptr[x + 1])
+                vals_x = np.mod(np.mod(num[seg], self.ell).astype(np.int64) * inv_den, self.ell)
+                np.add.at(rows[r], gen[seg], vals_x)
+            vals = np.mod(matmul_mod(np.mod(rows, self.ell), self.phi, self.ell), self.ell)
+            for r, x in enumerate(batch.tolist()):
+                if all(self._unit_inverse(vals[r], i) is not None for i in todo):
+                    return x, vals[r]
+        return None
 
     def _unit_inverse(self, row: np.ndarray, i: int):
         val = self._poly(row, i)
@@ -210,11 +244,11 @@ class EigenSystem:
 
     # -- Heilbronn rows ---------------------------------------------------------------------
     def _images(self, v: int, ps: list[int]) -> QMat:
-        """Rows T_p(v) in free coordinates for the given p (cached per (v, p))."""
+        """Rows T_p(v) in free coordinates for the Manin symbol v and the given p (cached
+        per (v, p))."""
         missing = [p for p in ps if (v, p) not in self._rows]
         if missing:
-            x = self.space.pres.free[v]
-            R = self.space.hecke_images(x, missing)
+            R = self.space.hecke_images(v, missing)
             for r, p in enumerate(missing):
                 self._rows[(v, p)] = QMat(R.num[r : r + 1], R.den)
         parts = [self._rows[(v, p)] for p in ps]

@@ -62,10 +62,10 @@ LOG_NAME = "nfb.log"
 MIN_FIT = 8
 # t ≈ A_k · ((k−1)·ψ(N))^B_k seconds at trace_bound 100, one core of the reference
 # machine (benchmarks/README.md): weight 2 from benchmarks/bench_overnight.py (127 full
-# units, levels 1..10000: 0.0084·ψ^0.61 at trace_bound 1000, rescaled by 10^−0.5; it
-# overestimates the smallest levels, which cost little anyway); weight 4 from the
-# quickstart run (N ≤ 100 only). Higher weights use weight 4's.
-DEFAULT_MODEL = {2: (2.7e-3, 0.61), 4: (4.6e-4, 1.26)}
+# units, levels 1..10000, 2026-12-03: 0.0108·ψ^0.52 at trace_bound 1000, rescaled by
+# 10^−0.5; it overestimates the smallest levels, which cost little anyway); weight 4 from
+# the quickstart run (N ≤ 100 only). Higher weights use weight 4's.
+DEFAULT_MODEL = {2: (3.4e-3, 0.52), 4: (4.6e-4, 1.26)}
 # nontrivial characters, x = (k−1)·ψ(N)·[Q(χ):Q], all weights: least squares over the
 # 253 nontrivial units of levels 10-40 of jobs/characters.toml (trace_bound 100; the
 # residuals are large, ~1.5 in log t: a rough guide until the database has measurements)
