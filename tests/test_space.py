@@ -266,6 +266,23 @@ def test_hecke_on_symbol_matches_matrix(N, k, sign):
     assert S.hecke_full(1) == ident(S.dim)
 
 
+@pytest.mark.parametrize("N,k,sign", [(389, 2, 1), (1000, 2, 1), (60, 2, 0), (143, 4, -1),
+                                      (30, 4, 1), (16, 6, 1)])  # fmt: skip
+def test_hecke_images_match_the_dense_matrices(N, k, sign):
+    """The Heilbronn sums of one symbol, summed per generator and multiplied by the dense
+    generator coordinates (``_accumulate_few``), equal the rows of the matrices built
+    term by term (``hecke_dense``) — two code paths for Merel's formula; common practice."""
+    S = cuspidal_space(N, k, sign)
+    assert S.gen_dense is not None
+    ps = [2, 3, 5, 7, 11, 13]
+    for t in sorted({0, S.dim // 2, S.dim - 1}):
+        R = S.hecke_images(S.pres.free[t], ps)
+        for r, p in enumerate(ps):
+            T = S.hecke_dense(p)
+            assert [Fraction(int(a), R.den) for a in R.num[r]] == [
+                Fraction(int(a), T.den) for a in T.num[t]], (p, t)
+
+
 # ==============================================================================================
 # Worked examples
 # ==============================================================================================

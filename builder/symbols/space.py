@@ -104,6 +104,8 @@ def _per_instance(method):
     return wrapper
 
 
+GEN_DENSE_MAX = 12_000_000  # entries (96 MB) of the dense generator matrix, per space
+
 class SymbolSpace:
     """Modular symbols M_k(Γ0(N)) with sign, its cuspidal subspace and operators."""
 
@@ -384,6 +386,39 @@ class SymbolSpace:
 
     # -- dense exact operators (numpy), used by the new-space pipeline ----------------------
     @cached_property
+    def gen_csr(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+        """The generators' free coordinates in CSR form over one denominator:
+        (indptr, free position, numerator, den), one row per generator of the presentation
+        (every Manin symbol is ± one generator, or zero)."""
+        pres = self.pres
+        den = 1
+        for e in pres.gen_expr:
+            for v in e.values():
+                if isinstance(v, Fraction):
+                    den = den * v.denominator // gcd(den, v.denominator)
+        gcnt = np.array([len(e) for e in pres.gen_expr], dtype=np.int64)
+        gptr = np.concatenate([[0], np.cumsum(gcnt)])
+        ggen = np.array([t for e in pres.gen_expr for t in e], dtype=np.int64)
+        gnum = _as_int(np.array([int(v * den) for e in pres.gen_expr for v in e.values()],
+                                dtype=object))
+        return gptr, ggen, gnum, den
+
+    @cached_property
+    def gen_dense(self) -> tuple[np.ndarray, float] | None:
+        """(G, max |G|): the generators' coordinate numerators as a dense float matrix
+        (generators × dim), or None when that would exceed ``GEN_DENSE_MAX`` entries or
+        the numerators are not small."""
+        if not hasattr(self.pres, "gen_expr") or self.dim == 0:
+            return None
+        gptr, ggen, gnum, _ = self.gen_csr
+        ngen = len(gptr) - 1
+        if ngen * self.dim > GEN_DENSE_MAX or gnum.dtype == object:
+            return None
+        G = np.zeros((ngen, self.dim))
+        G[np.repeat(np.arange(ngen), np.diff(gptr)), ggen] = gnum
+        return G, float(np.max(np.abs(gnum), initial=0))
+
+    @cached_property
     def coord_csr(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
         """Every Manin symbol's free coordinates in CSR form over one denominator.
 
@@ -393,17 +428,9 @@ class SymbolSpace:
         if not hasattr(pres, "gen_expr"):  # odd weight: the zero space
             return (np.zeros(pres.nsym + 1, dtype=np.int64), np.zeros(0, dtype=np.int64),
                     np.zeros(0, dtype=np.int64), 1)
-        den = 1
-        for e in pres.gen_expr:
-            for v in e.values():
-                if isinstance(v, Fraction):
-                    den = den * v.denominator // gcd(den, v.denominator)
         # generators first (few), then every symbol = sign · its generator, with numpy
-        gcnt = np.array([len(e) for e in pres.gen_expr], dtype=np.int64)
-        gptr = np.concatenate([[0], np.cumsum(gcnt)])
-        ggen = np.array([t for e in pres.gen_expr for t in e], dtype=np.int64)
-        gnum = _as_int(np.array([int(v * den) for e in pres.gen_expr for v in e.values()],
-                                dtype=object))
+        gptr, ggen, gnum, den = self.gen_csr
+        gcnt = np.diff(gptr)
         root, sign = pres.root_of, pres.root_sign
         cnt = np.where(root >= 0, gcnt[np.maximum(root, 0)], 0)
         indptr = np.concatenate([[0], np.cumsum(cnt)])
@@ -436,6 +463,27 @@ class SymbolSpace:
         acc = np.zeros(nrows * self.dim, dtype=object)
         np.add.at(acc, flat, num[pos].astype(object) * coef[rep].astype(object))
         return QMat(_as_int(acc.reshape(nrows, self.dim)), den).reduced()
+
+    def _accumulate_few(self, rows: np.ndarray, syms: np.ndarray, coef: np.ndarray,
+                        nrows: int) -> QMat:
+        """``_accumulate`` for few rows with many terms each (Heilbronn sums): the terms
+        are first summed per generator (every symbol is ± a generator), then one float
+        product with the generators' dense coordinates, exact while the row sums of
+        |counts| times max |coordinate| stay below 2^52; else ``_accumulate``."""
+        dense = self.gen_dense
+        if dense is None or coef.dtype == object:
+            return self._accumulate(rows, syms, coef, nrows)
+        G, gmax = dense
+        pres = self.pres
+        g = pres.root_of[syms]
+        keep = g >= 0
+        w = (pres.root_sign[syms] * coef)[keep].astype(np.float64)
+        ngen = G.shape[0]
+        C = np.bincount(rows[keep] * ngen + g[keep], weights=w,
+                        minlength=nrows * ngen).reshape(nrows, ngen)
+        if float(np.max(np.abs(C).sum(axis=1), initial=0)) * gmax >= float(1 << 52):
+            return self._accumulate(rows, syms, coef, nrows)
+        return QMat(np.rint(C @ G).astype(np.int64), self.coord_csr[3]).reduced()
 
     def dense(self, rows: list[Vec]) -> QMat:
         """Sparse rows (free coordinates) as an exact dense matrix."""
@@ -548,7 +596,7 @@ class SymbolSpace:
             nonlocal rows, syms, coefs, start, load
             if rows:
                 coef = np.concatenate(coefs)
-                out.append(self._accumulate(
+                out.append(self._accumulate_few(
                     np.concatenate(rows) - start, np.concatenate(syms),
                     _as_int(coef) if coef.dtype == object else coef, stop - start))
             else:
