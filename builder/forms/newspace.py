@@ -385,11 +385,13 @@ class NewSpace:
     def _exact_piece_op(self, label: Label, q: int) -> QMat | None:
         """T_q on a sign piece exactly, when that is cheaper than many 21-bit primes.
 
-        A sign piece is the kernel of the integer matrix [old conditions; W_Q − ε_Q] on the
-        whole symbol space: one exact rref (Dixon) gives it with the heights of Ann(Old)
-        (not compounded), then its characteristic polynomial needs few 62-bit primes.  Used
-        for big pieces of levels with few sign vectors (prime levels, products of two
-        primes); None otherwise (primary parts, many small pieces).
+        With ``exact_signs`` (an Ann(Old) basis of word-size entries) the piece's T_q comes
+        from the exact pieces inside Ann(Old).  Otherwise a sign piece is the kernel of the
+        integer matrix [old conditions; W_Q − ε_Q] on the whole symbol space: one exact
+        rref (Dixon) gives it with the heights of Ann(Old) (not compounded), then its
+        characteristic polynomial needs few 62-bit primes; used for big pieces of levels
+        with few sign vectors (``_exact_pieces_pay``).  None otherwise (primary parts, many
+        small pieces: the modular CRT of ``node_charpoly``).
         """
         if any(step[0] != "W" for step in label):
             return None
