@@ -174,22 +174,13 @@ class _ModState:
         """(symbol, φ row) for the first of the Manin symbols with ≥ 2 coordinates
         (at most ``_V_SCAN`` of them) on which every orbit in todo is a unit."""
         S = self.system.space
-        indptr, gen, num, den = S.coord_csr
+        indptr, _, _, den = S.coord_csr
         if den % self.ell == 0:
             return None
-        cand = np.nonzero(np.diff(indptr) >= 2)[0][:_V_SCAN]
-        inv_den = pow(den % self.ell, -1, self.ell)
-        for lo in range(0, len(cand), 64):
-            batch = cand[lo : lo + 64]
-            rows = np.zeros((len(batch), S.dim))
-            for r, x in enumerate(batch.tolist()):
-                seg = slice(indptr[x], indptr[x + 1])
-                vals_x = np.mod(np.mod(num[seg], self.ell).astype(np.int64) * inv_den, self.ell)
-                np.add.at(rows[r], gen[seg], vals_x)
-            vals = np.mod(matmul_mod(np.mod(rows, self.ell), self.phi, self.ell), self.ell)
-            for r, x in enumerate(batch.tolist()):
-                if all(self._unit_inverse(vals[r], i) is not None for i in todo):
-                    return x, vals[r]
+        for x in np.nonzero(np.diff(indptr) >= 2)[0][:_V_SCAN].tolist():
+            row = self.values(S.coords_row(x))[0]
+            if all(self._unit_inverse(row, i) is not None for i in todo):
+                return x, row
         return None
 
     def _unit_inverse(self, row: np.ndarray, i: int):
@@ -616,13 +607,6 @@ def fill_multiplicative(a: list, B: int, N: int, k: int, mul, one) -> None:
 
 def _traces_mod(aps: dict, o: Orbit, B: int, k: int, N: int, ell: int,
                 f: flint.nmod_poly) -> list[int]:
-    if o.dim == 1:  # K = Q: a_n are residues, Tr a_n = a_n (plain integers are faster)
-        b: list = [0] * (B + 1)
-        b[1] = 1
-        for p, v in aps.items():
-            b[p] = int(v[0])
-        fill_multiplicative(b, B, N, k, lambda x, y: x * y % ell, 1)
-        return [x % ell for x in b[1:]]
     one = flint.nmod_poly([1], ell)
     a: list = [None] * (B + 1)
     a[1] = one
