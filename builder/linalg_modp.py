@@ -35,6 +35,7 @@ from builder.arith import is_prime_large
 FLOAT_PRIME_TOP = 1 << 21  # residues < 2^21: products < 2^42, 2^11 of them sum exactly
 _BLOCK = 64  # panel width of the blocked elimination (k·ℓ² < 2^53 needs k ≤ 2^11)
 _F53 = float(1 << 53)
+_COMPRESS_SLACK = 16  # rows of a sparse compression beyond the rank bound
 
 
 _PRIME_LISTS: dict[int, list[int]] = {}
@@ -562,7 +563,7 @@ class DigitKernel(QMat):
         return X
 
 
-def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
+def exact_rref(Z: np.ndarray, max_primes: int = 8, rank_max: int | None = None) -> Echelon:
     """The rref over Q of the integer matrix Z: modular elimination, Dixon lifting, and an
     exact check.
 
@@ -572,6 +573,11 @@ def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
     R_{i+1} = (R_i − B·Y_i)/ℓ, every product an exact float product), reconstructed as
     rationals, and accepted only if Z·den == Z[:, piv]·R exactly (see the module doc).  A
     prime that fails (a rank drop, no lift) is replaced by the next one.
+
+    ``rank_max`` (an upper bound on the rank, e.g. from a dimension formula) lets a tall Z
+    be eliminated through a sparse random compression to rank_max + 16 rows
+    (``_compress``); a wrong bound only costs time: the check on Z fails and the later
+    attempts eliminate Z itself.
     """
     Z = _as_int(np.asarray(Z))
     m, n = Z.shape
@@ -581,7 +587,7 @@ def exact_rref(Z: np.ndarray, max_primes: int = 8) -> Echelon:
     for attempt, ell in enumerate(float_primes()):
         if attempt >= max_primes:
             break
-        W = _compress(Z, attempt)
+        W = _compress(Z, attempt, rank_max if attempt < 2 else None)
         record: list = []
         R, piv, prows = rref_mod_rows(to_residues(W, ell), ell, record=record)
         if len(piv) < best:
@@ -605,15 +611,33 @@ def _complement(piv: list[int], n: int) -> list[int]:
     return [c for c in range(n) if c not in ps]
 
 
-def _compress(Z: np.ndarray, seed: int) -> np.ndarray:
-    """Z itself, or G·Z for a random ±1/0 matrix G with n + 8 rows when Z has more than
-    2n + 8 rows (same row space for almost every G; checked later on Z itself).  The
-    product costs about as much as eliminating the extra rows, so it pays only for much
-    taller matrices (measured on the old-space conditions of levels 8000–10000)."""
+def _compress(Z: np.ndarray, seed: int, rank_max: int | None = None) -> np.ndarray:
+    """Z itself, or G·Z with the same row space for almost every G, fewer rows, checked
+    later on Z itself (``exact_rref``).
+
+    With a rank bound r: G is sparse with r + 16 rows, each row of Z entering one output
+    row with a random sign plus one more with a random coefficient in {−2, …, 2} (two
+    permutations; a cost of 2·m·n additions, against m·n·r for eliminating Z).  Without
+    one, a dense random ±1/0 matrix with n + 8 rows, used only when Z has more than 2n + 8
+    rows (the product costs about as much as eliminating the extra rows: measured on the
+    old-space conditions of levels 8000–10000)."""
     m, n = Z.shape
-    if m <= 2 * n + 8 or Z.dtype == object:
+    if Z.dtype == object:
         return Z
     rng = np.random.default_rng(1000 + seed)
+    if rank_max is not None:
+        rows = min(rank_max, n) + _COMPRESS_SLACK
+        if m <= rows + rows // 8 or _absmax(Z) * 3 * (m // rows + 2) >= (1 << 62):
+            return Z
+        k = -(-m // rows)
+        out = np.zeros((rows, n), dtype=np.int64)
+        for coeffs in (rng.choice([-1, 1], size=m), rng.integers(-2, 3, size=m)):
+            P = np.zeros((k * rows, n), dtype=np.int64)
+            P[:m] = Z[rng.permutation(m)] * coeffs[:, None]
+            out += P.reshape(k, rows, n).sum(axis=0)
+        return out
+    if m <= 2 * n + 8:
+        return Z
     G = rng.integers(-1, 2, size=(n + 8, m)).astype(np.int64)
     return int_matmul(G, Z)
 

@@ -16,6 +16,7 @@ from builder.linalg_modp import (
     DigitInts,
     Echelon,
     QMat,
+    _compress,
     _from_digits,
     _rowspace_check,
     _scaled_digits,
@@ -142,3 +143,23 @@ def test_exact_rref_digit_path_matches_flint():
     ell = next(float_primes())
     assert np.array_equal(X.mod(ell), QMat(X.num, X.den).mod(ell))
     assert not np.any(int_matmul(Z, X.num))
+
+
+@settings(max_examples=25, deadline=None)
+@given(st.integers(0, 10**6), st.integers(2, 12), st.integers(-3, 3))
+def test_rank_bound_compression_gives_the_same_rref(seed, r, off):
+    """A tall matrix eliminated through the sparse compression to rank_max + 16 rows has
+    python-flint's rref; a bound below the true rank (off < 0) loses rows of the row space
+    in the compression, the exact check refuses it and the later attempts use Z itself."""
+    rng = np.random.default_rng(seed)
+    n = 30
+    Z = rng.integers(-4, 5, size=(120, r)) @ rng.integers(-4, 5, size=(r, n))
+    Z[rng.integers(0, 120, size=10)] = 0  # zero rows, as the old conditions have
+    rank_max = max(r + off, 0)
+    if off >= 0:
+        assert _compress(Z, 0, rank_max).shape == (rank_max + 16, n)
+    E = exact_rref(Z, rank_max=rank_max)
+    ref, rank = _flint_rref(Z)
+    assert len(E.piv) == rank == r
+    for i in range(rank):
+        assert [flint.fmpq(int(E.num[i, j]), int(E.den)) for j in range(n)] == ref[i]

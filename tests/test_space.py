@@ -516,6 +516,21 @@ def test_degeneracy_commutes_with_hecke(N, M, t, k):
             assert S.hecke_full(p) * D == D * T.hecke_full(p), p
 
 
+@pytest.mark.parametrize("N,M,k", [(22, 11, 2), (30, 15, 2), (60, 30, 2), (98, 49, 2),
+                                   (210, 105, 2), (1000, 500, 2), (26, 13, 4)])  # fmt: skip
+def test_fricke_transfer_is_the_product(N, M, k):
+    # W_N is well defined on classes (common practice, [St] §8.4), so applying it to every
+    # Manin symbol of α_1(g) by continued fractions gives the row α_1(g)·W_N of the product.
+    S, T = cuspidal_space(N, k, 1), cuspidal_space(M, k, 1)
+    Tr, W = S.transfer_dense(T), S.atkin_lehner_dense(N)
+    F = S.fricke_transfer_dense(T)
+    lhs = flint.fmpq_mat(F.num.shape[0], F.num.shape[1], [int(x) for x in F.num.ravel()])
+    prod = (flint.fmpq_mat(*Tr.num.shape, [int(x) for x in Tr.num.ravel()])
+            * flint.fmpq_mat(*W.num.shape, [int(x) for x in W.num.ravel()]))
+    assert lhs / F.den == prod / (Tr.den * W.den)
+    assert F.num.shape == (T.dim, S.dim) and not F.is_zero()
+
+
 # ==============================================================================================
 # Bad input and the odd-weight convention (issue 2)
 # ==============================================================================================

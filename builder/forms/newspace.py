@@ -229,15 +229,17 @@ class NewSpace:
             src = cuspidal_space(self.N // p, self.k, 1)
             if src.dim == 0:
                 continue
-            Tr = S.transfer_dense(src)
-            blocks.append(Tr.num)
-            blocks.append(int_matmul(Tr.num, S.atkin_lehner_dense(self.N).num))
+            blocks.append(S.transfer_dense(src).num)
+            blocks.append(S.fricke_transfer_dense(src).num)
         if not blocks or n == 0:
             self.old_conditions = np.zeros((0, n), dtype=np.int64)
             return QMat.identity(n), list(range(n))
         Z = np.concatenate([b.astype(object) if b.dtype == object else b for b in blocks])
         self.old_conditions = Z  # rows whose common kernel is Ann(Old)
-        E = exact_rref(Z)
+        from builder.checks.formulas import dim_new
+
+        # Ann(Old) contains the new cusp functionals: rank ≤ n − dim S_k^new (a bound only)
+        E = exact_rref(Z, rank_max=n - dim_new(self.N, self.k))
         return E.kernel(), E.free
 
     def full_op(self, kind: str, n) -> QMat:
@@ -457,7 +459,8 @@ class NewSpace:
             return None
         Z = np.concatenate([b.astype(object) if b.dtype == object else b for b in blocks]) if (
             len(blocks) > 1) else blocks[0]
-        E = exact_rref(Z)
+        # the piece's dimension modulo ℓ is the exact one (module doc): the rank is known
+        E = exact_rref(Z, rank_max=S.dim - self._first_mod().dim(label))
         return E.kernel(), E.free
 
     # -- splitting ------------------------------------------------------------------------------

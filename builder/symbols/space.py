@@ -28,7 +28,7 @@ import numpy as np
 
 from builder.arith import check_index, check_level, check_sign, check_weight, factor
 from builder.linalg import left_kernel, pivots
-from builder.linalg_modp import QMat, _as_int, exact_rref
+from builder.linalg_modp import QMat, _as_int, exact_rref, int_matmul
 from builder.symbols.cusps import boundary_classes
 from builder.symbols.heilbronn import (
     hecke_matrices,
@@ -541,6 +541,11 @@ class SymbolSpace:
         [P, (c:d)]_M ↦ Σ [P, (c':d')]_N over the points of P¹(Z/NZ) above (c:d)
         (the transfer to Γ0(N) ⊂ Γ0(M); common practice, [St] §8.6).
         """
+        target, syms = self._transfer_terms(source)
+        return self._accumulate(target, syms, np.ones(len(syms), dtype=np.int64), source.dim)
+
+    def _transfer_terms(self, source: SymbolSpace) -> tuple[np.ndarray, np.ndarray]:
+        """(source generator, symbol of level N) for every symbol above a free generator."""
         if self.N % source.N or source.k != self.k or source.sign != self.sign:
             raise ValueError("transfer needs M | N, the same weight and sign")
         red = source.P1.index(self.P1.c, self.P1.d)
@@ -550,8 +555,22 @@ class SymbolSpace:
         i, j = np.divmod(syms, self.psi)
         target = pos[i * source.psi + red[j]]
         ok = target >= 0
-        return self._accumulate(target[ok], syms[ok], np.ones(int(ok.sum()), dtype=np.int64),
-                                source.dim)
+        return target[ok], syms[ok]
+
+    def fricke_transfer_dense(self, source: SymbolSpace) -> QMat:
+        """transfer_dense(source)·W_N: rows = W_N(α_1(g)) for source's free generators g.
+
+        Weight 2: W_N is applied to each Manin symbol of the transfer by continued
+        fractions (``_weight2_images``), never as a dense dim × dim product; W_N is well
+        defined on classes, so this is the same matrix.  Other weights: the product.
+        """
+        if self.w != 0:
+            T = self.transfer_dense(source)
+            W = self.atkin_lehner_dense(self.N)
+            return QMat(int_matmul(T.num, W.num), T.den * W.den)
+        target, syms = self._transfer_terms(source)
+        return self._weight2_images(self.atkin_lehner_matrix_for(self.N), syms, target,
+                                    source.dim)
 
     # -- Atkin–Lehner ---------------------------------------------------------------
     def atkin_lehner_matrix_for(self, Q: int) -> tuple[int, int, int, int]:
@@ -672,17 +691,24 @@ class SymbolSpace:
     def _atkin_lehner_weight2(self, A: int, B: int, C: int, D: int) -> QMat:
         """Weight 2: the same sum with every continued fraction expanded at once (numpy)."""
         free = np.array(self.pres.free, dtype=np.int64)
-        c, d = self.P1.c[free], self.P1.d[free]
+        return self._weight2_images((A, B, C, D), free, np.arange(len(free)), self.dim)
+
+    def _weight2_images(self, W: tuple[int, int, int, int], syms: np.ndarray,
+                        rows: np.ndarray, nrows: int) -> QMat:
+        """Weight 2, dense (nrows × dim): row rows[t] += W·(Manin symbol syms[t]), where
+        the symbol g{0, ∞} = {b/d, a/c} goes to {W(b/d), W(a/c)}, expanded by continued
+        fractions ([Ma]; [Cr] §2.1) all at once."""
+        A, B, C, D = W
+        c, d = self.P1.c[syms], self.P1.d[syms]
         a, b = _complete_vec(c, d)
-        gens = np.arange(len(free), dtype=np.int64)
         parts = [
-            _cf_terms(self.P1, A * a + B * c, C * a + D * c, gens, 1),
-            _cf_terms(self.P1, A * b + B * d, C * b + D * d, gens, -1),
+            _cf_terms(self.P1, A * a + B * c, C * a + D * c, rows, 1),
+            _cf_terms(self.P1, A * b + B * d, C * b + D * d, rows, -1),
         ]
-        rows = np.concatenate([p[0] for p in parts])
-        syms = np.concatenate([p[1] for p in parts])
+        out_rows = np.concatenate([p[0] for p in parts])
+        out_syms = np.concatenate([p[1] for p in parts])
         coefs = np.concatenate([p[2] for p in parts])
-        return self._accumulate(rows, syms, coefs, self.dim)
+        return self._accumulate(out_rows, out_syms, coefs, nrows)
 
     @_per_instance
     def atkin_lehner_full_matrix(self, Q: int) -> flint.fmpq_mat:
