@@ -36,6 +36,9 @@ FLOAT_PRIME_TOP = 1 << 21  # residues < 2^21: products < 2^42, 2^11 of them sum 
 _BLOCK = 64  # panel width of the blocked elimination (k·ℓ² < 2^53 needs k ≤ 2^11)
 _F53 = float(1 << 53)
 _COMPRESS_SLACK = 16  # rows of a sparse compression beyond the rank bound
+_LIMB_BITS = 21  # int64 products by limbs: two limbs multiply below 2^42 …
+_LIMB_MASK = (1 << _LIMB_BITS) - 1
+_LIMB_TERMS = 1 << 11  # … and 2^11 such products add up exactly in a float
 
 
 _PRIME_LISTS: dict[int, list[int]] = {}
@@ -372,7 +375,11 @@ def _scale(Z: np.ndarray, s: int) -> np.ndarray:
 
 
 def _absmax(Z: np.ndarray) -> int:
-    return int(np.max(np.abs(Z))) if Z.size else 0
+    if not Z.size:
+        return 0
+    if Z.dtype == object:
+        return int(np.max(np.abs(Z)))
+    return max(int(Z.max()), -int(Z.min()))  # no |Z| copy of a big matrix
 
 
 def _as_int(Z: np.ndarray) -> np.ndarray:
@@ -397,9 +404,15 @@ def int_matmul(A: np.ndarray, B: np.ndarray) -> np.ndarray:
     if A.size == 0 or B.size == 0:
         return np.zeros((A.shape[0], B.shape[1]), dtype=np.int64)
     ra = _rowabs_max(A)
-    mb = _absmax_any(B)
+    mb = _absmax(B)
     if ra * mb < (1 << 53) and A.dtype != object and B.dtype != object:
         return np.rint(A.astype(np.float64) @ B.astype(np.float64)).astype(np.int64)
+    if A.dtype != object and B.dtype != object and A.shape[1] <= _LIMB_TERMS:
+        # the float product is within n·2^-52·ra·mb of A·B: if that proves |A·B| < 2^62,
+        # the product modulo 2^64 (limbs) is A·B
+        approx = float(np.max(np.abs(A.astype(np.float64) @ B.astype(np.float64))))
+        if approx + (A.shape[1] + 2) * float(ra) * float(mb) * 2.0**-52 < float(1 << 62):
+            return _limb_matmul(A, B)
     if ra < (1 << 29) and A.dtype != object:
         Af = A.astype(np.float64)
         Bo = B.astype(object)
@@ -421,16 +434,38 @@ def int_matmul(A: np.ndarray, B: np.ndarray) -> np.ndarray:
         A.shape[0], B.shape[1]))
 
 
+def _limb_matmul(A: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """A·B modulo 2^64 (as int64) for int64 matrices with at most 2^11 columns in A: both
+    are cut into signed 21-bit limbs, every limb product (≤ 2^11 terms below 2^42) is an
+    exact float product, and the shifted products add up in wrapping uint64.  Equal to A·B
+    whenever |A·B| < 2^63 (the caller proves it)."""
+    def limbs(X: np.ndarray) -> list[np.ndarray]:
+        sign = np.where(X < 0, -1, 1)
+        mag = np.abs(X)
+        out = []
+        while True:
+            out.append(((mag & _LIMB_MASK) * sign).astype(np.float64))
+            mag = mag >> _LIMB_BITS
+            if not np.any(mag):
+                return out
+    la, lb = limbs(A), limbs(B)
+    C = np.zeros((A.shape[0], B.shape[1]), dtype=np.uint64)
+    for i, a in enumerate(la):
+        for j, b in enumerate(lb):
+            shift = _LIMB_BITS * (i + j)
+            if shift < 64:  # the other terms vanish modulo 2^64
+                C += np.rint(a @ b).astype(np.int64).view(np.uint64) << np.uint64(shift)
+    return C.view(np.int64)
+
+
 def _rowabs_max(A: np.ndarray) -> int:
     if not A.size:
         return 0
     if A.dtype == object:
         return int(np.max(np.sum(np.abs(A), axis=1)))
+    if _absmax(A) * A.shape[1] < (1 << 62):
+        return int(np.abs(A).sum(axis=1).max())
     return int(np.max(np.sum(np.abs(A).astype(np.float64), axis=1)))
-
-
-def _absmax_any(Z: np.ndarray) -> int:
-    return int(np.max(np.abs(Z))) if Z.size else 0
 
 
 def q_equal(A: QMat, B: QMat) -> bool:
@@ -629,12 +664,12 @@ def _compress(Z: np.ndarray, seed: int, rank_max: int | None = None) -> np.ndarr
         rows = min(rank_max, n) + _COMPRESS_SLACK
         if m <= rows + rows // 8 or _absmax(Z) * 3 * (m // rows + 2) >= (1 << 62):
             return Z
-        k = -(-m // rows)
         out = np.zeros((rows, n), dtype=np.int64)
         for coeffs in (rng.choice([-1, 1], size=m), rng.integers(-2, 3, size=m)):
-            P = np.zeros((k * rows, n), dtype=np.int64)
-            P[:m] = Z[rng.permutation(m)] * coeffs[:, None]
-            out += P.reshape(k, rows, n).sum(axis=0)
+            perm = rng.permutation(m)
+            for s in range(0, m, rows):
+                idx = perm[s : s + rows]
+                out[: len(idx)] += Z[idx] * coeffs[s : s + rows, None]
         return out
     if m <= 2 * n + 8:
         return Z
@@ -865,8 +900,8 @@ def _rowspace_check_modular(Z: np.ndarray, E: Echelon) -> bool:
     digits = E.free_digits
     num = E.num[:, free] if digits is None else None
     ra = max(_rowabs_max(A), 1)
-    nmax = digits.bound() if digits is not None else _absmax_any(num)
-    bound = max(ra * nmax, _absmax_any(Z[:, free]) * int(E.den))
+    nmax = digits.bound() if digits is not None else _absmax(num)
+    bound = max(ra * nmax, _absmax(Z[:, free]) * int(E.den))
     top = 1 << min(50 if digits is None else 31, ((1 << 53) // (2 * ra)).bit_length() - 1)
     Af = A.astype(np.float64)
     Zf = Z[:, free].astype(np.int64)  # |Z|·ℓ < 2^62: the left side stays in int64

@@ -163,3 +163,27 @@ def test_rank_bound_compression_gives_the_same_rref(seed, r, off):
     assert len(E.piv) == rank == r
     for i in range(rank):
         assert [flint.fmpq(int(E.num[i, j]), int(E.den)) for j in range(n)] == ref[i]
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(0, 10**6), st.integers(1, 40), st.integers(1, 61), st.integers(1, 61))
+def test_int_matmul_is_the_integer_product(seed, n, bits_a, bits_b):
+    """Every path of int_matmul (one float product, 21-bit limbs added modulo 2^64 when the
+    float product proves |A·B| < 2^62, 24-bit limbs with Python integers, FLINT) against
+    the product in Python integers (common practice)."""
+    rng = np.random.default_rng(seed)
+    A = rng.integers(-(1 << bits_a), 1 << bits_a, size=(7, n), dtype=np.int64)
+    B = rng.integers(-(1 << bits_b), 1 << bits_b, size=(n, 5), dtype=np.int64)
+    ref = A.astype(object) @ B.astype(object)
+    got = int_matmul(A, B)
+    assert got.shape == ref.shape
+    assert all(int(x) == int(y) for x, y in zip(got.ravel(), ref.ravel(), strict=True))
+
+
+def test_int_matmul_limbs_of_mixed_sizes():
+    """Entries of 60 and 40 bits whose product is still below 2^62: the limb products
+    shifted past 2^64 are dropped (they vanish modulo 2^64), the result is exact."""
+    A = np.array([[1 << 60, 1, -3], [-(1 << 59) + 5, 7, 1 << 20]], dtype=np.int64)
+    B = np.array([[1, -1], [(1 << 40) - 1, 1 << 39], [5, -(1 << 38)]], dtype=np.int64)
+    ref = A.astype(object) @ B.astype(object)
+    assert [int(x) for x in int_matmul(A, B).ravel()] == [int(x) for x in ref.ravel()]
