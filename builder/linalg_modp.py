@@ -661,7 +661,7 @@ def _compress(Z: np.ndarray, seed: int, rank_max: int | None = None) -> np.ndarr
         return Z
     rng = np.random.default_rng(1000 + seed)
     if rank_max is not None:
-        rows = min(rank_max, n) + _COMPRESS_SLACK
+        rows = min(max(rank_max, 0), n) + _COMPRESS_SLACK
         if m <= rows + rows // 8 or _absmax(Z) * 3 * (m // rows + 2) >= (1 << 62):
             return Z
         out = np.zeros((rows, n), dtype=np.int64)

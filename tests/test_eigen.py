@@ -16,7 +16,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from builder.forms.eigen import EigenForm, traces_in_quotient
+from builder.forms.eigen import EigenForm, prove_exact_duals, traces_in_quotient
 from builder.forms.fields import _power_sums
 from builder.forms.newspace import new_space
 from builder.forms.unit import all_traces, cm_discriminant, exact_an, hecke_traces
@@ -212,3 +212,25 @@ def test_trace_in_quotient_is_the_sum_over_the_roots(coeffs, seed):
     f = flint.nmod_poly([int(c) for c in f_q.coeffs()], ell)
     got = traces_in_quotient([flint.nmod_poly(x, ell) for x in xs], f)
     assert [int(t) for t in got] == want
+
+
+@pytest.mark.parametrize("N", [210, 330, 390])
+def test_batched_exact_duals_are_the_orbit_duals(N):
+    """prove_exact_duals (all rational orbits' checks in one product per operator) gives
+    each orbit the exact functional its own lazy proof gives (common practice: the same
+    object by two routes), and that functional is a T_q-eigenvector with the orbit's
+    eigenvalue vanishing on the old conditions."""
+    lazy = [E for E in eigenforms(N, 2) if E.d == 1]
+    V = new_space(N, 2)
+    batch = [E for E in (EigenForm(V, orb) for orb in V.orbits()) if E.d == 1]
+    assert len(batch) >= 3
+    prove_exact_duals(batch)
+    for E, F in zip(batch, lazy, strict=True):
+        assert "_exact_dual" in E.__dict__  # proved by the batch, not lazily
+        U, R = E.__dict__["_exact_dual"], F._exact_dual
+        assert U.den == R.den and (U.num == R.num).all()
+        q = E.orbit.prime
+        TU = V.apply_exact("T", q, U.num)
+        a_q = -int(E.orbit.poly.coeffs()[0])  # poly = x − a_q
+        assert (TU == a_q * V.full_op("T", q).den * U.num).all()  # T_q·u = a_q·u
+        assert not V.apply_exact("old", 0, U.num).any()

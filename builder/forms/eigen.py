@@ -388,6 +388,14 @@ class EigenForm:
         characteristic polynomial f, which has multiplicity one there: span U is the orbit.
         If no lift passes, the orbit's exact kernel (newspace.Orbit.dual_columns) is used.
         """
+        for cand, piv in self._dual_candidates():
+            if self._is_orbit_dual(cand, piv):
+                return cand
+        return self.new.X @ self.orbit.dual_columns
+
+    def _dual_candidates(self):
+        """The lifted candidates of ``_exact_dual`` (U, pivots), one per prime once the CRT
+        of the column echelon forms reconstructs (unchecked)."""
         sysm, i, d = self.system, self.index, self.d
         lo = sysm.offsets[i]
         piv = None
@@ -410,15 +418,11 @@ class EigenForm:
             acc, M = crt_arrays(acc, M, U, ell)
             lifted = _common_denominator_lift(acc, M)
             if lifted is not None:
-                cand = QMat(_as_int(np.asarray(lifted[0], dtype=object)), lifted[1])
-                if self._is_orbit_dual(cand, piv):
-                    return cand
-        return self.new.X @ self.orbit.dual_columns
+                yield QMat(_as_int(np.asarray(lifted[0], dtype=object)), lifted[1]), piv
 
-    def _is_orbit_dual(self, U: QMat, piv: list[int]) -> bool:
-        new, o = self.new, self.orbit
-        if not _all_zero(new.apply_exact("old", 0, U.num)):
-            return False
+    def _orbit_checks(self) -> list[tuple[str, object, flint.fmpz_poly, int]]:
+        """(kind, n, g, e): span U must be stable under the operator with g(A)^e = 0."""
+        o = self.orbit
         checks = [(*op_key(o.prime), o.poly, 1)]
         for step in o.label:
             if step[0] == "W":
@@ -427,9 +431,20 @@ class EigenForm:
             else:
                 _, q, g, e = step
                 checks.append((*op_key(q), flint.fmpz_poly(list(g)), e))
-        for kind, n, g, e in checks:
+        return checks
+
+    def _is_orbit_dual(self, U: QMat, piv: list[int], apply=None) -> bool:
+        """The exact checks of ``_exact_dual``; ``apply(kind, n)`` may supply the products
+        num·U of the big matrices (computed for several orbits at once)."""
+        new = self.new
+        if apply is None:
+            def apply(kind, n):
+                return new.apply_exact(kind, n, U.num)
+        if not _all_zero(apply("old", 0)):
+            return False
+        for kind, n, g, e in self._orbit_checks():
             T = new.full_op(kind, n)
-            TU = QMat(new.apply_exact(kind, n, U.num), T.den * U.den)
+            TU = QMat(apply(kind, n), T.den * U.den)
             A = QMat(TU.num[piv], TU.den).reduced()  # T·U = U·A if span U is T-stable
             if not q_equal(TU, U @ A):
                 return False
@@ -507,6 +522,39 @@ def _primitive(v: np.ndarray) -> np.ndarray:
     if g == 0:
         return v
     return np.array([int(x) // g for x in v], dtype=object)
+
+
+def prove_exact_duals(forms: list[EigenForm]) -> None:
+    """``_exact_dual`` for several orbits of one new space at once.
+
+    Each orbit's first lifted candidate is checked as in ``_exact_dual``, but every big
+    matrix (the old conditions, T_q, W_Q on the whole space) multiplies all candidates in
+    one product instead of one matrix–vector product per orbit: memory-bound products
+    streamed once (N = 7770, 31 rational orbits: 0.85 s → 0.1 s).  A candidate that passes
+    is the value ``_exact_dual`` would return; the others are left to it.
+    """
+    todo = []
+    for E in forms:
+        if "_exact_dual" not in E.__dict__:
+            cand = next(E._dual_candidates(), None)
+            if cand is not None and cand[0].num.dtype != object:
+                todo.append((E, *cand))
+    if len(todo) < 2:
+        return
+    new = todo[0][0].new
+    V = np.concatenate([U.num for _, U, _ in todo], axis=1)
+    starts = np.cumsum([0] + [U.num.shape[1] for _, U, _ in todo])
+    products: dict = {}
+
+    def product(kind, n) -> np.ndarray:
+        if (kind, n) not in products:
+            products[(kind, n)] = new.apply_exact(kind, n, V)
+        return products[(kind, n)]
+
+    for t, (E, U, piv) in enumerate(todo):
+        cols = slice(int(starts[t]), int(starts[t + 1]))
+        if E._is_orbit_dual(U, piv, lambda kind, n, c=cols: product(kind, n)[:, c]):
+            E.__dict__["_exact_dual"] = U
 
 
 def _poly_power_at(g: flint.fmpz_poly, e: int, A: flint.fmpq_mat) -> flint.fmpq_mat:

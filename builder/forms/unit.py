@@ -26,7 +26,7 @@ from builder.arith import (
     sturm_bound,
 )
 from builder.characters import character_orbit
-from builder.forms.eigen import EigenForm, eigen_system, fill_multiplicative
+from builder.forms.eigen import EigenForm, eigen_system, fill_multiplicative, prove_exact_duals
 from builder.forms.fields import canonical_polynomial, change_basis_matrix
 from builder.forms.newspace import NewSpace
 from builder.forms.record import NewformRecord, Params, SpaceRecord, make_label
@@ -68,6 +68,8 @@ def _compute(N: int, k: int, params: Params, t0: float) -> SpaceRecord:
     eigs = [EigenForm(V, o) for o in orbits]
     traces = eigen_system(V).traces(params.trace_bound) if eigs else []
     cms = cm_discriminants(eigs)
+    if k == 2:  # L(f, 1)/Ω⁺ of every rational orbit needs its exact functional
+        prove_exact_duals([E for E in eigs if E.d == 1])
     forms = [_orbit_data(E, t, cm, params) for E, t, cm in zip(eigs, traces, cms, strict=True)]
     forms.sort(key=lambda f: f["_key"])
     records = []
