@@ -49,6 +49,7 @@ import flint
 import numpy as np
 
 from builder.arith import divisors, factor, is_prime, moebius, prime_divisors, sturm_bound
+from builder.checks.formulas import dim_new
 from builder.linalg_modp import (
     DigitKernel,
     QMat,
@@ -236,8 +237,6 @@ class NewSpace:
             return QMat.identity(n), list(range(n))
         Z = np.concatenate([b.astype(object) if b.dtype == object else b for b in blocks])
         self.old_conditions = Z  # rows whose common kernel is Ann(Old)
-        from builder.checks.formulas import dim_new
-
         # Ann(Old) contains the new cusp functionals: rank ≤ n − dim S_k^new (a bound only)
         E = exact_rref(Z, rank_max=n - dim_new(self.N, self.k))
         return E.kernel(), E.free
@@ -509,8 +508,6 @@ class NewSpace:
         return sum(o.dim for o in self._split)
 
     def _check_dim(self) -> None:
-        from builder.checks.formulas import dim_new
-
         if self.dim != dim_new(self.N, self.k):
             raise ArithmeticError(
                 f"level {self.N} weight {self.k}: new dimension {self.dim} differs from "
